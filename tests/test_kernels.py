@@ -1,0 +1,294 @@
+"""Compiled epoch kernel versus the NumPy specification in lintext.optim / lintext.losses.
+
+The oracle is ``reference_epoch`` below: a plain NumPy loop over the same batches in the
+same order, built only from ``optim.apply_step``, ``optim.catch_up`` and
+``losses.scores_loss_grad``. It catches up missed steps one at a time (a loop), while the
+kernel uses closed forms (running log-sums, powers), so agreement also checks those.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+
+from lintext import kernels, losses, optim
+from lintext.kernels_compiled import schedule_lr
+
+OPTIMIZERS = ["sgd", "adagrad", "adadelta", "rmsprop", "adam"]
+LRS = {"sgd": 0.3, "adagrad": 0.3, "adadelta": 1.0, "rmsprop": 0.01, "adam": 0.02}
+
+
+def random_problem(n=24, n_features=9, n_labels=3, density=0.3, seed=0):
+    rng = np.random.default_rng(seed)
+    X = sp.random(n, n_features, density=density, format="csr", random_state=seed,
+                  data_rvs=lambda k: rng.normal(size=k))
+    y = rng.integers(0, n_labels, size=n).astype(np.int64)
+    return X, y
+
+
+def reference_epoch(X, y, order, params, state, last_step, step, rule, loss, lr0, schedule, decay,
+                    l2, batch_size, lazy):
+    """Specification of one epoch (see lintext.kernels' docstring), in NumPy.
+
+    ``state`` holds per-coordinate arrays shaped like ``params`` (rows = features + bias).
+    Returns (loss_sum, new_step, stat_update_count, stat_abs_update_sum).
+    """
+    n_features = X.shape[1]
+    bias = n_features
+    stat_count = np.zeros(n_features + 1, dtype=np.int64)
+    stat_abs = np.zeros(n_features + 1)
+    lr_of = lambda t: optim.schedule_learning_rate(schedule, lr0, decay, t)  # noqa: E731
+    row_state = lambda j: {k: v[j] for k, v in state.items()}  # noqa: E731
+
+    def put_state(j, new):
+        for k, v in new.items():
+            state[k][j] = v
+
+    loss_sum = 0.0
+    for start in range(0, len(order), batch_size):
+        rows = order[start:start + batch_size]
+        Xb = X[rows]
+        lr = lr_of(step)
+        present = np.unique(Xb.indices) if lazy else np.arange(n_features)
+        for j in present:  # lazy catch-up over the missed steps, one by one
+            missed = [lr_of(s) for s in range(last_step[j], step)]
+            w, new = optim.catch_up(rule, params[j], row_state(j), missed, l2)
+            params[j] = w
+            put_state(j, new)
+            last_step[j] = step + 1
+        S = Xb @ params[:-1] + params[-1]
+        mean, dS = losses.scores_loss_grad(loss, S, y[rows])
+        loss_sum += mean * len(rows)
+        G = np.zeros_like(params)
+        G[:-1] = Xb.T @ dS
+        G[-1] = dS.sum(axis=0)
+        for j in list(present) + [bias]:
+            before = params[j].copy()
+            w, new = optim.apply_step(rule, params[j], G[j], row_state(j), lr, 0.0 if j == bias else l2)
+            params[j] = w
+            put_state(j, new)
+            if np.any(G[j] != 0):
+                stat_count[j] += 1
+                stat_abs[j] += np.abs(w - before).sum()
+        last_step[bias] = step + 1
+        step += 1
+    for j in range(n_features):  # flush
+        missed = [lr_of(s) for s in range(last_step[j], step)]
+        w, new = optim.catch_up(rule, params[j], row_state(j), missed, l2)
+        params[j] = w
+        put_state(j, new)
+    last_step[:] = step
+    return loss_sum, step, stat_count, stat_abs
+
+
+def run_both(name, loss, batch_size, lazy, l2, schedule="constant", decay=0.0, epochs=2, seed=0,
+             X=None, y=None, n_labels=3):
+    if X is None:
+        X, y = random_problem(seed=seed, n_labels=n_labels)
+    n, n_features = X.shape
+    rule = optim.make_rule(name)
+    code = optim.OPTIMIZER_CODES[name]
+    hp = dict(beta1=0.9, beta2=0.999, rho=getattr(rule, "rho", 0.9), epsilon=getattr(rule, "epsilon", 1e-8))
+    lr0 = LRS[name]
+    # kernel
+    params_k = np.zeros((n_features + 1, n_labels))
+    ks = kernels.KernelState.new(n_features, n_labels, code)
+    # reference
+    params_r = np.zeros((n_features + 1, n_labels))
+    rs = rule.init_state(params_r.shape)
+    last = np.zeros(n_features + 1, dtype=np.int64)
+    step = 0
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(epochs):
+        order = rng.permutation(n).astype(np.int64)
+        lk, finite = kernels.run_epoch(
+            X.indptr, X.indices, X.data, y, order, params_k, ks, loss_code=losses.LOSS_CODES[loss],
+            optimizer_code=code, schedule_code=optim.SCHEDULE_CODES[schedule], learning_rate=lr0,
+            decay=decay, l2=l2, batch_size=batch_size, lazy=lazy, **hp)
+        assert finite
+        lr_, step, cnt, ab = reference_epoch(X, y, order, params_r, rs, last, step, rule, loss, lr0,
+                                             schedule, decay, l2, batch_size, lazy)
+        out.append((lk, lr_, cnt, ab))
+    return params_k, ks, params_r, rs, step, out
+
+
+@pytest.mark.parametrize("batch_size", [1, 4])
+@pytest.mark.parametrize("loss", ["softmax", "hinge"])
+@pytest.mark.parametrize("name", OPTIMIZERS)
+def test_kernel_matches_numpy_specification(name, loss, batch_size):
+    # Oracle: reference_epoch (optim.py rules). Lazy mode, L2 on, SGD with the inverse schedule.
+    schedule, decay = ("inverse", 0.1) if name == "sgd" else ("constant", 0.0)
+    pk, ks, pr, rs, step, out = run_both(name, loss, batch_size, lazy=True, l2=0.05,
+                                         schedule=schedule, decay=decay)
+    assert ks.step == step == 2 * -(-24 // batch_size)
+    np.testing.assert_allclose(pk, pr, rtol=0, atol=1e-10)
+    assert np.abs(pk).max() > 1e-3  # it did train
+    for key, arr in rs.items():
+        kernel_arr = ks.rule_state(optim.OPTIMIZER_CODES[name])[key]
+        np.testing.assert_allclose(np.broadcast_to(kernel_arr, arr.shape), arr, rtol=0, atol=1e-10)
+    stat_count = np.zeros_like(ks.stat_update_count)
+    stat_abs = np.zeros_like(ks.stat_abs_update_sum)
+    for lk, lr_, cnt, ab in out:
+        assert lk == pytest.approx(lr_, abs=1e-10)
+        stat_count += cnt
+        stat_abs += ab
+    np.testing.assert_array_equal(ks.stat_update_count, stat_count)
+    np.testing.assert_allclose(ks.stat_abs_update_sum, stat_abs, rtol=0, atol=1e-10)
+
+
+@pytest.mark.parametrize("name", OPTIMIZERS)
+def test_kernel_dense_mode_matches_numpy_specification(name):
+    # Oracle: reference_epoch with every row updated every step (absent features: g = 0).
+    pk, ks, pr, rs, _, out = run_both(name, "softmax", 4, lazy=False, l2=0.05)
+    np.testing.assert_allclose(pk, pr, rtol=0, atol=1e-10)
+    for lk, lr_, _, _ in out:
+        assert lk == pytest.approx(lr_, abs=1e-10)
+
+
+def _kernel_params(name, lazy, l2, batch_size, schedule="constant", decay=0.0, X=None, y=None, epochs=3):
+    X, y = (X, y) if X is not None else random_problem(n=30, seed=3)
+    code = optim.OPTIMIZER_CODES[name]
+    params = np.zeros((X.shape[1] + 1, 3))
+    st = kernels.KernelState.new(X.shape[1], 3, code)
+    rng = np.random.default_rng(1)
+    for _ in range(epochs):
+        kernels.run_epoch(X.indptr, X.indices, X.data, y, rng.permutation(X.shape[0]), params, st,
+                          loss_code=0, optimizer_code=code, schedule_code=optim.SCHEDULE_CODES[schedule],
+                          learning_rate=LRS[name], decay=decay, l2=l2, batch_size=batch_size, lazy=lazy)
+    return params, st
+
+
+@pytest.mark.parametrize("name,schedule", [("sgd", "constant"), ("sgd", "inverse"), ("sgd", "inverse_sqrt"),
+                                           ("adagrad", "constant")])
+@pytest.mark.parametrize("l2", [0.0, 0.1])
+def test_lazy_equals_dense_for_sgd_and_adagrad(name, schedule, l2):
+    # Semantics (kernels docstring): zero gradient changes nothing; L2 prox catch-up is closed form.
+    decay = 0.05 if schedule != "constant" else 0.0
+    lazy, _ = _kernel_params(name, True, l2, 1, schedule, decay)
+    dense, _ = _kernel_params(name, False, l2, 1, schedule, decay)
+    np.testing.assert_allclose(lazy, dense, rtol=0, atol=1e-10)
+    assert np.abs(lazy).max() > 1e-2
+
+
+@pytest.mark.parametrize("name", ["adadelta", "rmsprop", "adam"])
+def test_lazy_equals_dense_when_every_feature_is_present(name):
+    # Full batch: every feature is in every batch, so no step is ever missed.
+    X, y = random_problem(n=30, seed=3)
+    lazy, _ = _kernel_params(name, True, 0.1, 1000, X=X, y=y)
+    dense, _ = _kernel_params(name, False, 0.1, 1000, X=X, y=y)
+    np.testing.assert_allclose(lazy, dense, rtol=0, atol=1e-12)
+    # Dense data (every feature in every example) with per-example steps.
+    Xd = sp.csr_matrix(np.random.default_rng(2).normal(size=(12, 4)))
+    yd = np.arange(12, dtype=np.int64) % 3
+    lazy, _ = _kernel_params(name, True, 0.1, 1, X=Xd, y=yd)
+    dense, _ = _kernel_params(name, False, 0.1, 1, X=Xd, y=yd)
+    np.testing.assert_allclose(lazy, dense, rtol=0, atol=1e-12)
+
+
+def test_lazy_adam_differs_from_dense_on_sparse_data():
+    # Documented approximation: dense Adam keeps moving absent features by momentum.
+    lazy, _ = _kernel_params("adam", True, 0.0, 1)
+    dense, _ = _kernel_params("adam", False, 0.0, 1)
+    assert np.abs(lazy - dense).max() > 1e-4
+
+
+def test_schedule_in_optim_and_kernel_agree():
+    for name, code in optim.SCHEDULE_CODES.items():
+        for t in [0, 1, 7, 1000, 123456]:
+            for decay in [0.0, 0.01, 2.5]:
+                assert schedule_lr(code, 0.3, decay, t) == pytest.approx(
+                    optim.schedule_learning_rate(name, 0.3, decay, t), rel=1e-15)
+    # Worked by hand: 1/(1 + 0.5*2) = 0.5; 1/sqrt(1 + 0.5*6) = 0.5.
+    assert schedule_lr(optim.SCHEDULE_INVERSE, 1.0, 0.5, 2) == 0.5
+    assert schedule_lr(optim.SCHEDULE_INVERSE_SQRT, 1.0, 0.5, 6) == 0.5
+
+
+def test_adam_count_is_per_feature_in_lazy_mode_and_global_in_dense_mode():
+    X, y = random_problem(n=30, seed=3)
+    _, lazy = _kernel_params("adam", True, 0.0, 1, X=X, y=y, epochs=2)
+    _, dense = _kernel_params("adam", False, 0.0, 1, X=X, y=y, epochs=2)
+    # lazy: touches = number of examples containing the feature, per epoch (softmax gradients
+    # are never exactly 0, so it equals the statistic too); bias row: every step.
+    np.testing.assert_array_equal(lazy.update_count[:-1], 2 * X.getnnz(axis=0))
+    np.testing.assert_array_equal(lazy.update_count[:-1], lazy.stat_update_count[:-1])
+    assert lazy.update_count[-1] == 60
+    np.testing.assert_array_equal(dense.update_count, np.full(X.shape[1] + 1, 60))
+
+
+def test_float32_kernel_agrees_with_float64():
+    X, y = random_problem(n=30, seed=4)
+    out = {}
+    for dt in (np.float64, np.float32):
+        params = np.zeros((X.shape[1] + 1, 3), dtype=dt)
+        st = kernels.KernelState.new(X.shape[1], 3, optim.ADAGRAD, dt)
+        for e in range(3):
+            kernels.run_epoch(X.indptr, X.indices, X.data.astype(dt), y, np.arange(30), params, st,
+                              loss_code=0, optimizer_code=optim.ADAGRAD, schedule_code=0,
+                              learning_rate=0.3, epsilon=1e-10, batch_size=1)
+        out[dt] = params
+    assert out[np.float32].dtype == np.float32
+    np.testing.assert_allclose(out[np.float32], out[np.float64], atol=1e-5)
+
+
+def test_nonfinite_loss_is_reported():
+    X, y = random_problem(n=30, seed=4)
+    params = np.zeros((X.shape[1] + 1, 3))
+    params[0, 0] = np.inf
+    st = kernels.KernelState.new(X.shape[1], 3, optim.SGD)
+    X = X.copy()
+    X.data[:] = 1.0
+    _, finite = kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(30), params, st,
+                                  loss_code=0, optimizer_code=optim.SGD, schedule_code=0,
+                                  learning_rate=0.1)
+    assert finite is False
+
+
+def test_adam_first_update_of_a_late_feature():
+    # Feature 1 appears only in the last of 50 examples (batch size 1). Kingma & Ba (2015),
+    # Algorithm 1, applied by hand to its first non-zero gradient g (per label):
+    # lazy, own count n = 1: m_hat = g, v_hat = g^2 -> |dw| = lr*|g|/(|g| + eps) ~ lr;
+    # dense, global count n = 50: m = 0.1 g, v = 0.001 g^2 ->
+    #   |dw| = lr * (0.1/(1 - 0.9^50)) / sqrt(0.001/(1 - 0.999^50)) = 0.70216 lr.
+    n, lr = 50, 0.01
+    rows = np.r_[np.arange(n), n - 1]
+    cols = np.r_[np.zeros(n, dtype=int), 1]
+    X = sp.csr_matrix((np.ones(n + 1), (rows, cols)), shape=(n, 2))
+    y = np.arange(n, dtype=np.int64) % 3
+    out = {}
+    for lazy in (True, False):
+        params = np.zeros((3, 3))
+        st = kernels.KernelState.new(2, 3, optim.ADAM)
+        kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(n), params, st, loss_code=0,
+                          optimizer_code=optim.ADAM, schedule_code=0, learning_rate=lr, batch_size=1,
+                          lazy=lazy)
+        assert st.stat_update_count[1] == 1
+        out[lazy] = st.stat_abs_update_sum[1]
+    assert out[True] == pytest.approx(3 * lr, rel=1e-6)
+    dense_factor = (0.1 / (1 - 0.9**50)) / np.sqrt(0.001 / (1 - 0.999**50))
+    assert dense_factor == pytest.approx(0.70216, rel=1e-4)
+    assert out[False] == pytest.approx(3 * lr * dense_factor, rel=1e-6)
+
+
+def test_inverse_schedule_is_refused_for_adaptive_rules():
+    X, y = random_problem()
+    st = kernels.KernelState.new(X.shape[1], 3, optim.ADAGRAD)
+    with pytest.raises(ValueError, match="SGD only"):
+        kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(24), np.zeros((10, 3)), st,
+                          loss_code=0, optimizer_code=optim.ADAGRAD,
+                          schedule_code=optim.SCHEDULE_INVERSE, learning_rate=0.1)
+
+
+def test_batch_size_at_least_n_is_one_full_batch_step():
+    # Full batch: one step per epoch whose gradient is the mean over all rows, so it equals
+    # one plain gradient step on the mean loss (lintext.losses.objective with l2 = 0).
+    X, y = random_problem()
+    params = np.zeros((X.shape[1] + 1, 3))
+    st = kernels.KernelState.new(X.shape[1], 3, optim.SGD)
+    kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(24), params, st, loss_code=0,
+                      optimizer_code=optim.SGD, schedule_code=0, learning_rate=0.5, batch_size=1000)
+    assert st.step == 1
+    _, gW, gb = losses.objective("softmax", X, y, np.zeros((X.shape[1], 3)), np.zeros(3), 0.0)
+    np.testing.assert_allclose(params[:-1], -0.5 * gW, atol=1e-14)
+    np.testing.assert_allclose(params[-1], -0.5 * gb, atol=1e-14)
