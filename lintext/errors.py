@@ -40,6 +40,7 @@ class ConfigError(LinTextError):
     def __init__(self, option: str, value, problem: str):
         self.option = option
         self.value = value
+        self.problem = problem
         super().__init__(f"{option}={value!r}: {problem}")
 
 

@@ -31,3 +31,45 @@ def tiny_jsonl(tmp_path) -> Path:
     lines = [json.dumps({"text": f"meter {i} reading", "label": "meter"}) for i in range(4)]
     lines += [json.dumps({"text": f"power cut {i} tonight", "label": "outage"}) for i in range(4)]
     return write(tmp_path / "tiny.jsonl", "\n".join(lines) + "\n")
+
+
+def small_corpus_rows(n_per_label: int = 40, seed: int = 0) -> list[tuple[str, str]]:
+    """Three invented labels with overlapping vocabularies, shuffled deterministically."""
+    import random
+
+    rng = random.Random(seed)
+    topics = {
+        "billing": "invoice charge refund payment overdue tariff direct debit statement".split(),
+        "outage": "power cut dark blackout restore lines storm flicker".split(),
+        "water": "tap brown pressure leak pipe cloudy taste boil".split(),
+    }
+    common = "please help today again my house the street since morning urgent thanks".split()
+    rows = []
+    for label, words in topics.items():
+        for _ in range(n_per_label):
+            doc = rng.sample(words, 3) + rng.sample(common, 3) + [rng.choice(topics[rng.choice(list(topics))])]
+            rng.shuffle(doc)
+            rows.append((" ".join(doc), label))
+    rng.shuffle(rows)
+    return rows
+
+
+def write_csv(path: Path, rows) -> Path:
+    import csv
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(["text", "label"])
+        writer.writerows(rows)
+    return path
+
+
+@pytest.fixture
+def small_split(tmp_path) -> dict:
+    rows = small_corpus_rows()
+    return {
+        "train": write_csv(tmp_path / "train.csv", rows[:90]),
+        "dev": write_csv(tmp_path / "dev.csv", rows[90:105]),
+        "test": write_csv(tmp_path / "test.csv", rows[105:]),
+    }

@@ -1,0 +1,259 @@
+"""Model: a fitted featurizer plus weights, and the model directory on disk.
+
+A model directory holds
+
+- ``model.json``: format version, lintext version, ``labels`` in the column
+  order of the weights, featurizer state, training options, metrics, history;
+- ``weights.npz``: float arrays ``coef`` (features x labels) and ``intercept``
+  (labels), read with ``allow_pickle=False``;
+- ``vocabulary.tsv``: feature, column index, document frequency in training;
+- ``feature_stats.npz`` (when trained by lintext's engine): per-feature update
+  statistics for the report.
+
+It is written to a temporary directory beside the target and renamed into
+place, so a failure or an interrupt never leaves half a model behind and never
+changes a model already at that path.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+import zipfile
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from . import __version__
+from .errors import LinTextError, ModelFileError
+from .features import Featurizer
+
+FORMAT_VERSION = 1
+STAT_NAMES = ("update_count", "abs_update_sum", "effective_step")
+
+
+class Model:
+    """A trained linear text classifier.
+
+    Parameters
+    ----------
+    featurizer : fitted :class:`~lintext.features.Featurizer`.
+    coef : array (n_features, n_labels).
+    intercept : array (n_labels,).
+    labels : label names in the column order of ``coef``.
+    loss : ``softmax`` or ``hinge``.
+    info : everything else kept in ``model.json`` (training options, metrics,
+        history, best epoch, data description).
+    feature_stats : optional per-feature update statistics (arrays of n_features).
+    """
+
+    def __init__(self, featurizer, coef, intercept, labels, loss="softmax", info=None, feature_stats=None):
+        self.featurizer = featurizer
+        self.coef = np.ascontiguousarray(coef)
+        self.intercept = np.asarray(intercept)
+        self.labels = list(labels)
+        self.loss = loss
+        self.info = dict(info or {})
+        self.feature_stats = feature_stats
+
+    # ------------------------------------------------------------ prediction
+
+    def decision_function(self, texts) -> np.ndarray:
+        """Scores ``X @ coef + intercept``, one row per text."""
+        X = self.featurizer.transform(texts)
+        return np.asarray(X @ self.coef) + self.intercept
+
+    def predict(self, texts) -> list[str]:
+        scores = self.decision_function(texts)
+        return [self.labels[j] for j in scores.argmax(axis=1)]
+
+    def predict_proba(self, texts) -> np.ndarray:
+        """Softmax probabilities; only a softmax-loss model has them."""
+        if self.loss != "softmax":
+            raise LinTextError(f"a {self.loss}-loss model gives scores, not probabilities; use decision_function")
+        return softmax(self.decision_function(texts))
+
+    # ------------------------------------------------------------ persistence
+
+    def to_json(self) -> dict:
+        return {
+            "format_version": FORMAT_VERSION,
+            "lintext_version": __version__,
+            "labels": self.labels,
+            "loss": self.loss,
+            "n_features": int(self.coef.shape[0]),
+            "featurizer": self.featurizer.to_json(),
+            **self.info,
+        }
+
+    def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None) -> Path:
+        """Write the model directory atomically; ``extra(tmpdir)`` may add files before the rename."""
+        if not np.isfinite(self.coef).all() or not np.isfinite(self.intercept).all():
+            raise LinTextError("refusing to save a model with non-finite weights")
+        target = Path(path)
+        return atomic_directory(target, lambda tmp: (self._write(tmp), extra and extra(tmp)))
+
+    def _write(self, folder: Path) -> None:
+        with open(folder / "model.json", "w", encoding="utf-8") as fh:
+            json.dump(self.to_json(), fh, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default)
+            fh.write("\n")
+        np.savez(folder / "weights.npz", coef=self.coef, intercept=self.intercept)
+        self.featurizer.save_vocabulary(folder / "vocabulary.tsv")
+        if self.feature_stats is not None:
+            np.savez(folder / "feature_stats.npz", **{k: np.asarray(self.feature_stats[k]) for k in STAT_NAMES})
+
+    @classmethod
+    def load(cls, path: str | os.PathLike) -> "Model":
+        """Read and validate a model directory; a wrong field, shape or dtype raises ModelFileError."""
+        folder = Path(path)
+        if not folder.is_dir():
+            raise ModelFileError(folder, "no such model directory")
+        meta = _read_json(folder / "model.json")
+        version = meta.get("format_version")
+        if not isinstance(version, int):
+            raise ModelFileError(folder / "model.json", "field 'format_version' is missing or not an integer")
+        if version > FORMAT_VERSION:
+            raise ModelFileError(
+                folder / "model.json",
+                f"model format version {version} is newer than this lintext ({__version__}) reads ({FORMAT_VERSION}); upgrade lintext",
+            )
+        labels = meta.get("labels")
+        if not isinstance(labels, list) or len(labels) < 2 or not all(isinstance(x, str) for x in labels) or len(set(labels)) != len(labels):
+            raise ModelFileError(folder / "model.json", "field 'labels' must be a list of at least two distinct strings")
+        loss = meta.get("loss")
+        if loss not in ("softmax", "hinge"):
+            raise ModelFileError(folder / "model.json", f"field 'loss' must be 'softmax' or 'hinge', not {loss!r}")
+        if not isinstance(meta.get("featurizer"), dict):
+            raise ModelFileError(folder / "model.json", "field 'featurizer' is missing")
+        try:
+            featurizer = Featurizer.load(meta["featurizer"], folder / "vocabulary.tsv")
+        except LinTextError as exc:
+            raise ModelFileError(folder / "model.json", f"field 'featurizer': {exc}") from None
+        n_features, n_labels = featurizer.n_features, len(labels)
+        arrays = _read_npz(folder / "weights.npz", {"coef": (n_features, n_labels), "intercept": (n_labels,)})
+        stats = None
+        if (folder / "feature_stats.npz").exists():
+            stats = _read_npz(folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES}, finite=False, kinds="fi")
+        info = {k: v for k, v in meta.items() if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features"}}
+        return cls(featurizer, arrays["coef"], arrays["intercept"], labels, loss, info, stats)
+
+
+def softmax(scores: np.ndarray) -> np.ndarray:
+    z = scores - scores.max(axis=1, keepdims=True)
+    np.exp(z, out=z)
+    z /= z.sum(axis=1, keepdims=True)
+    return z
+
+
+def load_model(path: str | os.PathLike) -> Model:
+    """Load a model directory written by :meth:`Model.save`."""
+    return Model.load(path)
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def atomic_directory(target: Path, fill: Callable[[Path], object]) -> Path:
+    """Fill a temporary directory beside ``target``, then rename it into place.
+
+    An existing ``target`` is replaced only once the new directory is complete;
+    on any failure (or Ctrl-C) the temporary directory is removed and
+    ``target`` is left as it was.
+    """
+    target = Path(target).resolve()
+    target.parent.mkdir(parents=True, exist_ok=True)
+    if target.exists() and not target.is_dir():
+        raise ModelFileError(target, "exists and is not a directory")
+    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
+    os.chmod(tmp, 0o777 & ~_umask())  # mkdtemp makes 0700; give the usual permissions
+    old = None
+    try:
+        fill(tmp)
+        if target.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+            os.rename(target, old / "previous")
+        os.rename(tmp, target)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        if old is not None and (old / "previous").exists() and not target.exists():
+            os.rename(old / "previous", target)
+        raise
+    finally:
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+    return target
+
+
+def atomic_file(target: Path, write: Callable[[object], object], newline: str = "") -> Path:
+    """Write a text file through a temporary file beside ``target``, then rename it into place."""
+    target = Path(target).resolve()
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.tmp-", dir=target.parent)
+    os.chmod(tmp, 0o666 & ~_umask())
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline=newline) as fh:
+            write(fh)
+        os.replace(tmp, target)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return target
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _json_default(value):
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return float(value)
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, tuple):
+        return list(value)
+    raise TypeError(f"cannot write {type(value).__name__} to JSON")
+
+
+def _read_json(path: Path) -> dict:
+    if not path.is_file():
+        raise ModelFileError(path, "file is missing")
+    try:
+        with open(path, encoding="utf-8") as fh:
+            data = json.load(fh)
+    except json.JSONDecodeError as exc:
+        raise ModelFileError(path, f"not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+    except UnicodeDecodeError:
+        raise ModelFileError(path, "not valid UTF-8") from None
+    if not isinstance(data, dict):
+        raise ModelFileError(path, "expected a JSON object")
+    return data
+
+
+def _read_npz(path: Path, shapes: dict, finite: bool = True, kinds: str = "f") -> dict:
+    """Read named arrays with ``allow_pickle=False``, checking shape, dtype kind (``f`` float, ``i`` integer)."""
+    if not path.is_file():
+        raise ModelFileError(path, "file is missing")
+    try:
+        with np.load(path, allow_pickle=False) as archive:
+            arrays = {name: archive[name] for name in shapes if name in archive.files}
+    except (zipfile.BadZipFile, ValueError, EOFError, OSError, KeyError) as exc:
+        raise ModelFileError(path, f"not a readable NumPy archive ({type(exc).__name__}: {exc})") from None
+    for name, shape in shapes.items():
+        if name not in arrays:
+            raise ModelFileError(path, f"array {name!r} is missing")
+        array = arrays[name]
+        if array.dtype.kind not in kinds or array.dtype.itemsize not in (4, 8):
+            expected = " or ".join({"f": "float32/float64", "i": "int32/int64"}[k] for k in kinds)
+            raise ModelFileError(path, f"array {name!r} has dtype {array.dtype}, expected {expected}")
+        if array.shape != shape:
+            raise ModelFileError(path, f"array {name!r} has shape {array.shape}, expected {shape}")
+        if finite and not np.isfinite(array).all():
+            raise ModelFileError(path, f"array {name!r} holds non-finite values")
+    return arrays

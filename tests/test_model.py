@@ -1,0 +1,131 @@
+"""Model directory: save, load in a fresh process, validation of every file, atomic replacement."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import lintext
+from lintext.errors import ModelFileError
+from lintext.model import FORMAT_VERSION, Model, atomic_directory
+
+
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory):
+    from .conftest import small_corpus_rows, write_csv
+
+    tmp = tmp_path_factory.mktemp("model")
+    rows = small_corpus_rows()
+    train = write_csv(tmp / "train.csv", rows[:100])
+    model = lintext.train(train, dev_fraction=0.15, options={"epochs": 5, "seed": 1})
+    path = model.save(tmp / "m")
+    return model, path, [t for t, _ in rows[100:]]
+
+
+def tree_bytes(folder: Path) -> dict:
+    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def test_files_and_fields(trained):
+    model, path, _ = trained
+    assert sorted(p.name for p in path.iterdir()) == ["feature_stats.npz", "model.json", "vocabulary.tsv", "weights.npz"]
+    meta = json.loads((path / "model.json").read_text())
+    assert meta["format_version"] == FORMAT_VERSION and meta["labels"] == ["billing", "outage", "water"]
+    assert meta["training"]["optimizer"] == model.info["training"]["optimizer"]
+    assert len(meta["history"]) >= 1 and 1 <= meta["best_epoch"] <= len(meta["history"])
+    with np.load(path / "weights.npz", allow_pickle=False) as w:
+        assert w["coef"].shape == (model.featurizer.n_features, 3) and w["intercept"].shape == (3,)
+    header, *rows = (path / "vocabulary.tsv").read_text().splitlines()
+    assert header == "feature\tindex\tdocument_frequency" and len(rows) == model.featurizer.n_features
+
+
+def test_fresh_process_gives_identical_predictions(trained):
+    model, path, texts = trained
+    code = (
+        "import json, sys, lintext\n"
+        f"m = lintext.load_model({str(path)!r})\n"
+        "texts = json.loads(sys.stdin.read())\n"
+        "print(json.dumps({'labels': m.predict(texts), 'proba': m.predict_proba(texts).tolist()}))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], input=json.dumps(texts), capture_output=True, text=True, check=True)
+    other = json.loads(done.stdout)
+    assert other["labels"] == model.predict(texts)
+    # float64 -> JSON text -> float64 is exact (repr round-trips)
+    assert np.array_equal(np.array(other["proba"]), model.predict_proba(texts))
+
+
+def corrupt(path: Path, tmp_path: Path, how: str) -> Path:
+    import shutil
+
+    bad = tmp_path / f"bad-{how}"
+    shutil.copytree(path, bad)
+    if how == "truncated-weights":
+        data = (bad / "weights.npz").read_bytes()
+        (bad / "weights.npz").write_bytes(data[: len(data) // 2])
+    elif how == "json-not-json":
+        (bad / "model.json").write_text("{not json")
+    elif how == "coef-shape":
+        with np.load(bad / "weights.npz") as w:
+            np.savez(bad / "weights.npz", coef=w["coef"][:-1], intercept=w["intercept"])
+    elif how == "coef-dtype":
+        with np.load(bad / "weights.npz") as w:
+            np.savez(bad / "weights.npz", coef=w["coef"].astype(np.int64), intercept=w["intercept"])
+    elif how == "newer-version":
+        meta = json.loads((bad / "model.json").read_text())
+        meta["format_version"] = FORMAT_VERSION + 1
+        (bad / "model.json").write_text(json.dumps(meta))
+    elif how == "labels":
+        meta = json.loads((bad / "model.json").read_text())
+        meta["labels"] = ["only-one"]
+        (bad / "model.json").write_text(json.dumps(meta))
+    elif how == "no-vocabulary":
+        (bad / "vocabulary.tsv").unlink()
+    elif how == "pickled-array":
+        with np.load(bad / "weights.npz") as w:
+            np.savez(bad / "weights.npz", coef=np.array([object()], dtype=object), intercept=w["intercept"])
+    return bad
+
+
+MALFORMED = [
+    ("truncated-weights", "weights.npz: not a readable NumPy archive"),
+    ("json-not-json", "model.json: not valid JSON (line 1, column 2"),
+    ("coef-shape", "array 'coef' has shape"),
+    ("coef-dtype", "array 'coef' has dtype int64"),
+    ("newer-version", f"model format version {FORMAT_VERSION + 1} is newer"),
+    ("labels", "field 'labels'"),
+    ("no-vocabulary", "vocabulary file is missing"),
+    ("pickled-array", "weights.npz: not a readable NumPy archive"),
+]
+
+
+@pytest.mark.parametrize("how, message", MALFORMED)
+def test_malformed_model_is_named(trained, tmp_path, how, message):
+    _, path, _ = trained
+    bad = corrupt(path, tmp_path, how)
+    with pytest.raises(ModelFileError) as info:
+        Model.load(bad)
+    assert message in str(info.value) and "\n" not in str(info.value)
+
+
+def test_atomic_directory_keeps_old_on_failure(tmp_path):
+    target = tmp_path / "out"
+    atomic_directory(target, lambda d: (d / "a.txt").write_text("old"))
+    before = tree_bytes(target)
+
+    def fail(d):
+        (d / "a.txt").write_text("new, half written")
+        raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        atomic_directory(target, fail)
+    assert tree_bytes(target) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    atomic_directory(target, lambda d: (d / "b.txt").write_text("new"))
+    assert tree_bytes(target) == {"b.txt": b"new"}
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
