@@ -80,6 +80,7 @@ TextColumnOpt = Annotated[str, typer.Option("--text-column", help="Column or fie
 LabelColumnOpt = Annotated[str, typer.Option("--label-column", help="Column or field holding the label.")]
 NgramsOpt = Annotated[str, typer.Option("--ngrams", help="Word n-gram range, e.g. 1-2.")]
 CharNgramsOpt = Annotated[Optional[str], typer.Option("--char-ngrams", help="Character n-grams inside words, e.g. 3-5 (off by default).")]
+DEFAULT_MIN_DF = str(FeaturizerConfig().min_df)
 MinDfOpt = Annotated[str, typer.Option("--min-df", help="Keep features in at least this many documents (or this share, if < 1).")]
 MaxDfOpt = Annotated[str, typer.Option("--max-df", help="Drop features in more than this share of documents (or count, if > 1).")]
 MaxFeaturesOpt = Annotated[Optional[int], typer.Option("--max-features", help="Keep only the most frequent features.")]
@@ -138,7 +139,7 @@ def stats(
     label_column: LabelColumnOpt = "label",
     ngrams: NgramsOpt = "1-2",
     char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = "1",
+    min_df: MinDfOpt = DEFAULT_MIN_DF,
     max_df: MaxDfOpt = "1.0",
     max_features: MaxFeaturesOpt = None,
     weighting: WeightingOpt = "tfidf",
@@ -240,7 +241,7 @@ def train(
     label_column: LabelColumnOpt = "label",
     ngrams: NgramsOpt = "1-2",
     char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = "1",
+    min_df: MinDfOpt = DEFAULT_MIN_DF,
     max_df: MaxDfOpt = "1.0",
     max_features: MaxFeaturesOpt = None,
     weighting: WeightingOpt = "tfidf",
@@ -521,7 +522,7 @@ def sweep(
     label_column: LabelColumnOpt = "label",
     ngrams: NgramsOpt = "1-2",
     char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = "1",
+    min_df: MinDfOpt = DEFAULT_MIN_DF,
     max_df: MaxDfOpt = "1.0",
     max_features: MaxFeaturesOpt = None,
     weighting: WeightingOpt = "tfidf",
@@ -583,8 +584,11 @@ def sweep(
                       "" if row["dev_loss"] is None else f"{row['dev_loss']:.4g}", sweeping.format_cell(row["dev_accuracy"]),
                       sweeping.format_cell(row["dev_macro_f1"]), sweeping.format_cell(row["best_epoch"]), str(row["epochs_run"]),
                       f"{row['seconds']:.1f}", style="bold green" if row["run"] == result.best else None)
-    # On a terminal rich fits the table to its width; piped or captured, print it whole.
-    (out if out.is_terminal else Console(file=out.file, width=160, highlight=False)).print(table)
+    # Never cut a cell: when the table is wider than the terminal (or piped), print it at its own width.
+    needed = Console(width=400).measure(table).maximum
+    wide = out if out.is_terminal and out.width >= needed else Console(file=out.file, width=needed, highlight=False,
+                                                                       force_terminal=out.is_terminal)
+    wide.print(table)
     if result.best is None:
         raise LinTextError(f"every run diverged; results written to {where}, no model saved; try smaller learning rates")
     best = result.rows[result.best]
@@ -609,7 +613,7 @@ def probe(
     label_column: LabelColumnOpt = "label",
     ngrams: NgramsOpt = "1-2",
     char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = "1",
+    min_df: MinDfOpt = DEFAULT_MIN_DF,
     max_df: MaxDfOpt = "1.0",
     max_features: MaxFeaturesOpt = None,
     weighting: WeightingOpt = "tfidf",

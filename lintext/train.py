@@ -69,14 +69,14 @@ class TrainOptions:
     """
 
     loss: str = "softmax"
-    optimizer: str = "adagrad"
+    optimizer: str = "sgd"
     learning_rate: float | None = None
     schedule: str = "constant"
     decay: float = 1e-4
     plateau_factor: float = 0.5
     epochs: int = 50
     batch_size: int = 8
-    patience: int = 3
+    patience: int = 5
     min_improvement: float = 1e-4
     stop_metric: str = "dev_loss"
     l2: float = 0.0

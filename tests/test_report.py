@@ -68,7 +68,7 @@ def trained(tmp_path_factory):
         "test": write_csv(tmp / "test.csv", rows[105:]),
     }
     model = lintext.train(paths["train"], dev=paths["dev"], test=paths["test"],
-                          options={"optimizer": "adagrad", "epochs": 4, "patience": 0})
+                          featurizer={"min_df": 1}, options={"optimizer": "adagrad", "epochs": 4, "patience": 0})
     texts, labels = _read_texts(paths["train"])
     sources = [f"train.csv:{i + 2}" for i in range(len(texts))]
     X = model.featurizer.transform(texts)
@@ -125,7 +125,7 @@ def tiny_model():
     corpus = Corpus([t for t, _ in TINY], [y for _, y in TINY], [f"tiny:{i + 1}" for i in range(4)])
     return lintext.train(
         corpus, dev_fraction=0,
-        featurizer=FeaturizerConfig(ngrams=(1, 1), weighting="binary", normalize=False),
+        featurizer=FeaturizerConfig(ngrams=(1, 1), min_df=1, weighting="binary", normalize=False),
         options=lintext.TrainOptions(optimizer="sgd", batch_size=1, epochs=2, patience=0, learning_rate=0.5),
     )
 
