@@ -11,5 +11,8 @@ lintext train data/demo/train.csv --dev data/demo/dev.csv --test data/demo/test.
 lintext evaluate "$out" data/demo/test.csv
 lintext predict "$out" data/demo/test.csv --top 2 --out "$out/test-predictions.csv"
 echo
-echo "Results: model directory $root/$out (model.json, weights.npz, vocabulary.tsv),"
-echo "test-set predictions in $out/test-predictions.csv."
+echo "Results in $root/$out:"
+echo "  report.html      the report: learning curves, feature frequency against update size, top and rare features"
+echo "  features.csv     one row per feature: document frequency, updates, sum of |change|, weight norm"
+echo "  model.json, weights.npz, vocabulary.tsv   the model (lintext predict / evaluate read it)"
+echo "  test-predictions.csv                      predictions for data/demo/test.csv"
