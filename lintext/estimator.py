@@ -1,0 +1,107 @@
+"""A scikit-learn compatible classifier over lintext's training engine.
+
+It takes a feature matrix (sparse or dense), not text, so that it composes with
+scikit-learn's vectorizers in a ``Pipeline``::
+
+    make_pipeline(TfidfVectorizer(), LinTextClassifier(optimizer="adagrad"))
+
+Early stopping holds out a stratified ``validation_fraction`` of the training
+rows when ``early_stopping`` is on; otherwise every epoch runs.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.model_selection import train_test_split
+from sklearn.utils.metaestimators import available_if
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from .model import softmax
+from .train import TrainOptions, fit
+
+
+class LinTextClassifier(ClassifierMixin, BaseEstimator):
+    """Sparse linear classifier trained by lintext's engine.
+
+    Parameters mirror :class:`lintext.train.TrainOptions`; see there for
+    their meaning. ``learning_rate=None`` takes the optimizer's default.
+
+    Attributes
+    ----------
+    classes_ : labels in column order.
+    coef_ : array (n_classes, n_features), as in scikit-learn's linear models.
+    intercept_ : array (n_classes,).
+    history_ : per-epoch records.
+    n_features_in_ : number of input columns.
+    """
+
+    def __init__(self, loss="softmax", optimizer="adagrad", learning_rate=None, schedule="constant", epochs=20,
+                 batch_size=8, l2=0.0, early_stopping=False, validation_fraction=0.1, patience=5, seed=0):
+        self.loss = loss
+        self.optimizer = optimizer
+        self.learning_rate = learning_rate
+        self.schedule = schedule
+        self.epochs = epochs
+        self.batch_size = batch_size
+        self.l2 = l2
+        self.early_stopping = early_stopping
+        self.validation_fraction = validation_fraction
+        self.patience = patience
+        self.seed = seed
+
+    def fit(self, X, y):
+        X, y = validate_data(self, X, y, accept_sparse="csr", dtype=np.float64)
+        check_classification_targets(y)
+        self.classes_, codes = np.unique(y, return_inverse=True)
+        if len(self.classes_) < 2:
+            raise ValueError(f"a classifier needs at least two classes; got {len(self.classes_)} class")
+        X = sp.csr_matrix(X)
+        X.sort_indices()
+        options = TrainOptions(loss=self.loss, optimizer=self.optimizer, learning_rate=self.learning_rate,
+                               schedule=self.schedule, epochs=self.epochs, batch_size=self.batch_size, l2=self.l2,
+                               patience=self.patience if self.early_stopping else 0, seed=self.seed)
+        options.validate()
+        X_dev = y_dev = None
+        if self.early_stopping:
+            rows = np.arange(X.shape[0])
+            train_rows, dev_rows = train_test_split(rows, test_size=self.validation_fraction, stratify=codes,
+                                                    random_state=self.seed)
+            X, X_dev, y_dev, codes = X[train_rows], X[dev_rows], codes[dev_rows], codes[train_rows]
+        result = fit(X, codes.astype(np.int64), len(self.classes_), X_dev, y_dev, options)
+        self.coef_ = np.ascontiguousarray(result.coef.T)
+        self.intercept_ = result.intercept.copy()
+        self.history_ = result.history
+        return self
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.input_tags.sparse = True
+        return tags
+
+    def _scores(self, X):
+        check_is_fitted(self)
+        X = validate_data(self, X, accept_sparse="csr", dtype=np.float64, reset=False)
+        return np.asarray(X @ self.coef_.T) + self.intercept_
+
+    def decision_function(self, X):
+        """Per-class scores; with two classes, as scikit-learn expects, the second minus the first."""
+        scores = self._scores(X)
+        return scores[:, 1] - scores[:, 0] if scores.shape[1] == 2 else scores
+
+    def predict(self, X):
+        scores = self._scores(X)
+        return self.classes_[scores.argmax(axis=1)]
+
+    def _has_probabilities(self):
+        return self.loss == "softmax"
+
+    @available_if(_has_probabilities)
+    def predict_proba(self, X):
+        return softmax(self._scores(X))
+
+    @available_if(_has_probabilities)
+    def predict_log_proba(self, X):
+        return np.log(self.predict_proba(X))

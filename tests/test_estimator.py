@@ -1,0 +1,40 @@
+"""The scikit-learn estimator: scikit-learn's own estimator checks, and a Pipeline on text."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from sklearn.feature_extraction.text import TfidfVectorizer
+from sklearn.linear_model import LogisticRegression
+from sklearn.pipeline import make_pipeline
+from sklearn.utils.estimator_checks import parametrize_with_checks
+
+from lintext.estimator import LinTextClassifier
+
+from .conftest import small_corpus_rows
+
+
+@parametrize_with_checks([LinTextClassifier(), LinTextClassifier(loss="hinge", optimizer="sgd", learning_rate=0.1)])
+def test_scikit_learn_estimator_checks(estimator, check):
+    # Reference: scikit-learn's own conformance suite (sklearn.utils.estimator_checks).
+    check(estimator)
+
+
+def test_pipeline_on_text_agrees_with_logistic_regression():
+    # Reference: scikit-learn's LogisticRegression on the same tf-idf matrix; both should
+    # label the same held-out texts nearly always on this easy invented corpus.
+    rows = small_corpus_rows(60)
+    texts, labels = [t for t, _ in rows], [lab for _, lab in rows]
+    ours = make_pipeline(TfidfVectorizer(), LinTextClassifier(epochs=30)).fit(texts[:150], labels[:150])
+    ref = make_pipeline(TfidfVectorizer(), LogisticRegression(max_iter=1000)).fit(texts[:150], labels[:150])
+    agree = np.mean(ours.predict(texts[150:]) == ref.predict(texts[150:]))
+    assert agree >= 0.9
+    proba = ours.predict_proba(texts[150:])
+    assert proba.shape == (30, 3) and np.allclose(proba.sum(axis=1), 1.0)
+
+
+def test_hinge_has_no_probabilities():
+    clf = LinTextClassifier(loss="hinge").fit(np.eye(4), [0, 1, 0, 1])
+    assert not hasattr(clf, "predict_proba")
+    with pytest.raises(AttributeError):
+        clf.predict_proba(np.eye(4))
