@@ -1,0 +1,345 @@
+"""Learning-rate probe: a short run with a geometrically growing step size.
+
+The "LR range test" of L. N. Smith, "Cyclical Learning Rates for Training Neural
+Networks" (WACV 2017, arXiv:1506.01186), section 3.3: train for a few hundred steps while
+the learning rate grows from tiny to large, and read off the range in which the loss
+falls. :func:`probe_learning_rate` runs the engine's own compiled kernel
+(:func:`lintext.kernels.run_epoch`) one minibatch per call, with that call's step size,
+so the probe trains exactly as :func:`lintext.train.fit` would with that rate.
+
+Procedure, for step ``t = 0 .. steps-1``:
+
+* learning rate ``eta_t = min_lr * (max_lr / min_lr) ** (t / (steps - 1))``;
+* ``loss_t``: the mean loss of the step's minibatch before its update (minibatches are
+  consecutive slices of a seeded permutation of the rows, reshuffled when exhausted);
+* smoothed loss, an exponential moving average with bias correction (as in Adam's
+  moment estimates, Kingma & Ba 2015): ``a_t = beta * a_{t-1} + (1 - beta) * loss_t``,
+  ``smooth_t = a_t / (1 - beta^(t+1))``;
+* stop when ``smooth_t > blowup * min_{s<=t} smooth_s`` or the loss is not finite.
+
+Suggestion rule (exact): let ``slope_t`` be :func:`numpy.gradient` of ``smooth`` against
+``log10(eta)`` over the steps before the stop (central differences), ``m`` the step of the
+lowest smoothed loss, and ``t*`` the step of the most negative slope among steps
+``0 .. m``. The suggestion is the rate of the fractional step ``t* - lag(t*)``, i.e.
+``eta_{t*}`` divided by ``(max_lr / min_lr) ** (lag / (steps - 1))``, where ``lag`` is the
+mean lag of the bias-corrected moving average (:func:`smoothing_lag`, about
+``beta / (1 - beta)`` = 49 steps for 0.98). No suggestion when the smoothed loss never falls.
+
+Why this rule. Steepest descent rather than the lowest loss: by the lowest point the
+rate is already where the loss is about to turn up, too large for a whole training run;
+where the loss falls fastest per decade, every step helps most and the rate is still
+clear of the blow-up (Smith reads a range off the test, from where accuracy starts to
+rise to where it slows or turns ragged; the steepest point lies inside it). Only the descent up to the lowest point is
+searched, because past it the curve is dominated by noise whose dips are not descents.
+The division by the lag factor is not an arbitrary safety margin: a moving average
+reports at step ``t`` the losses of about ``lag`` steps earlier, taken at rates
+``(max_lr / min_lr) ** (lag / (steps - 1))`` times smaller (about 15 times for the
+defaults), so without it the suggestion would belong to the curve of a later, larger
+rate. Checked against brute force in ``tests/test_sweep.py``: on a synthetic problem the
+suggestion lies among the constant rates that reduce the training loss most in the same
+number of steps.
+
+Caveat: on sparse text with ``batch_size=1``, 300 steps see only 300 documents, and the
+loss before each update is close to a held-out loss; the curve is noisy and the
+suggestion is a starting point for a sweep, not a replacement for one.
+
+This module also holds what :mod:`lintext.sweep` shares with the probe: :func:`prepare_data`
+(read, hold out dev rows and featurize once, as :func:`lintext.pipeline.train` does) and the
+helpers of the self-contained pages (:func:`figure_svg`, :func:`html_page`).
+"""
+
+from __future__ import annotations
+
+import csv
+import html
+import io
+import json
+import math
+import os
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import scipy.sparse as sp
+
+from . import kernels, losses, optim
+from .errors import ConfigError
+from .features import Featurizer, FeaturizerConfig
+from .io import Corpus, read_corpus, split_dev
+from .model import atomic_directory, atomic_file
+from .pipeline import _as
+from .train import OPTIMIZERS, TrainOptions, _check_xy
+
+Progress = Callable[[dict], None]
+STEP_OPTIMIZERS = tuple(name for name in OPTIMIZERS if name != "lbfgs")  # the rules with a learning rate
+
+
+# --------------------------------------------------------------------------- data, shared with the sweep
+
+
+@dataclass
+class PreparedData:
+    """Read, split and featurized data, shared by :func:`probe` and :func:`lintext.sweep.sweep`."""
+
+    featurizer: Featurizer
+    labels: list[str]
+    X: sp.csr_matrix
+    y: np.ndarray
+    X_dev: sp.csr_matrix | None
+    y_dev: np.ndarray | None
+    dev_set: Corpus | None
+    description: dict
+
+
+def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
+                 seed: int = 0, fmt: str | None = None, text_column: str = "text", label_column: str = "label",
+                 progress: Progress | None = None) -> PreparedData:
+    """Read ``data``, hold out a dev set as :func:`lintext.pipeline.train` does, and featurize once.
+
+    The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
+    seeded by ``seed`` (none when ``dev_fraction`` is 0). ``description`` is the ``data``
+    part of a model's ``info``.
+    """
+    report = progress or (lambda event: None)
+    fconfig = _as(FeaturizerConfig, featurizer).validate()
+    reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
+    report({"stage": "reading", "path": str(data)})
+    corpus = data if isinstance(data, Corpus) else read_corpus(data, **reader)
+    if dev is not None:
+        train_set = corpus
+        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, min_labels=1, **reader)
+    elif dev_fraction and dev_fraction > 0:
+        train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
+    else:
+        train_set, dev_set = corpus, None
+    labels = train_set.label_names
+    report({"stage": "featurizing", "documents": len(train_set)})
+    started = time.perf_counter()
+    feat = Featurizer(fconfig)
+    X = feat.fit_transform(train_set.texts).tocsr()
+    X_dev = feat.transform(dev_set.texts).tocsr() if dev_set is not None else None
+    description = {
+        "train": str(getattr(data, "path", data)),
+        "train_documents": len(train_set),
+        "dev": None if dev_set is None else (str(getattr(dev, "path", dev)) if dev is not None else f"{dev_fraction:g} of train"),
+        "dev_documents": 0 if dev_set is None else len(dev_set),
+        "features": int(X.shape[1]),
+        "nonzeros": int(X.nnz),
+        "featurize_seconds": round(time.perf_counter() - started, 3),
+    }
+    y_dev = dev_set.label_indices(labels) if dev_set is not None else None
+    return PreparedData(feat, labels, X, train_set.label_indices(labels), X_dev, y_dev, dev_set, description)
+
+
+# --------------------------------------------------------------------------- probe
+
+
+@dataclass
+class ProbeResult:
+    """Rates tried, raw and smoothed losses, the suggestion and why the probe stopped."""
+
+    learning_rates: np.ndarray
+    losses: np.ndarray
+    smoothed: np.ndarray
+    slopes: np.ndarray
+    suggestion: float | None
+    steepest_step: int | None
+    stop_reason: str
+    settings: dict = field(default_factory=dict)
+
+    def to_json(self) -> dict:
+        return {**self.settings, "suggestion": self.suggestion, "steepest_step": self.steepest_step,
+                "stop_reason": self.stop_reason, "steps_run": int(len(self.learning_rates))}
+
+    def save(self, path: str | os.PathLike) -> Path:
+        """Write ``probe.csv`` (one row per step), ``probe.json`` and ``probe.html`` (the plot) atomically."""
+
+        def table(fh):
+            writer = csv.writer(fh, lineterminator="\n")
+            writer.writerow(["step", "learning_rate", "loss", "smoothed_loss", "slope"])
+            for t, row in enumerate(zip(self.learning_rates, self.losses, self.smoothed, self.slopes)):
+                writer.writerow([t] + ["" if not math.isfinite(v) else repr(float(v)) for v in row])
+
+        def fill(tmp: Path):
+            atomic_file(tmp / "probe.csv", table)
+            atomic_file(tmp / "probe.json", lambda fh: (json.dump(self.to_json(), fh, indent=2, allow_nan=False), fh.write("\n")))
+            atomic_file(tmp / "probe.html", lambda fh: fh.write(probe_page(self)))
+
+        return atomic_directory(Path(path), fill)
+
+
+def smoothing_lag(beta: float, count: int) -> float:
+    """Mean lag, in steps, of the bias-corrected moving average after ``count`` values.
+
+    Its weights are ``(1 - beta) * beta^s / (1 - beta^count)`` on the value ``s`` steps back
+    (``s = 0 .. count-1``), so the mean lag is ``beta / (1 - beta) - count * beta^count / (1 - beta^count)``:
+    0 for the first value, tending to ``beta / (1 - beta)`` (49 steps for 0.98).
+    """
+    if beta == 0:
+        return 0.0
+    return beta / (1.0 - beta) - count * beta**count / (1.0 - beta**count)
+
+
+def probe_learning_rate(X, y, n_labels: int, options: TrainOptions | dict | None = None, *, min_lr: float = 1e-6,
+                        max_lr: float = 10.0, steps: int = 300, smoothing: float = 0.98, blowup: float = 4.0,
+                        progress: Progress | None = None) -> ProbeResult:
+    """Run the learning-rate probe (see the module docstring) on a featurized training set.
+
+    Parameters
+    ----------
+    X : scipy.sparse CSR matrix; y : int array of label indices; n_labels : int
+    options : TrainOptions or dict
+        Loss, optimizer (not lbfgs), batch size, L2, lazy mode, dtype, seed and the rule's
+        hyperparameters are used; ``learning_rate``, ``schedule`` and ``epochs`` are not.
+    min_lr, max_lr : float
+        First and last step size (``0 < min_lr < max_lr``).
+    steps : int
+        Most steps (at least 10).
+    smoothing : float
+        ``beta`` of the moving average, in ``[0, 1)``.
+    blowup : float
+        Stop when the smoothed loss exceeds ``blowup`` times its minimum so far (> 1).
+    progress : callable
+        Called after every step with ``{"stage": "probe", "step", "steps", "learning_rate", "smoothed_loss"}``.
+    """
+    options = _as(TrainOptions, options)
+    options.validate()
+    if options.optimizer not in STEP_OPTIMIZERS:
+        raise ConfigError("--optimizer", options.optimizer, f"the probe needs a rule with a learning rate: {', '.join(STEP_OPTIMIZERS)}")
+    if not (0 < min_lr < max_lr and math.isfinite(max_lr)):
+        raise ConfigError("--min-lr", min_lr, f"must be positive and below --max-lr ({max_lr:g})")
+    if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 10:
+        raise ConfigError("--steps", steps, "must be a whole number of at least 10")
+    if not 0 <= smoothing < 1:
+        raise ConfigError("--smoothing", smoothing, "must be at least 0 and below 1")
+    if not blowup > 1:
+        raise ConfigError("--blowup", blowup, "must be above 1")
+    X, y = _check_xy(X, y, int(n_labels), "X", "y")
+    n, n_features = X.shape
+    dtype = np.dtype(options.dtype)
+    data = np.ascontiguousarray(X.data, dtype=dtype)
+    code = optim.OPTIMIZER_CODES[options.optimizer]
+    rule = optim.make_rule(options.optimizer, beta1=options.beta1, beta2=options.beta2, epsilon=options.epsilon, rho=options.rho)
+    hyper = dict(beta1=getattr(rule, "beta1", 0.9), beta2=getattr(rule, "beta2", 0.999),
+                 rho=getattr(rule, "rho", 0.9), epsilon=getattr(rule, "epsilon", 1e-8))
+    params = np.zeros((n_features + 1, int(n_labels)), dtype=dtype)
+    state = kernels.KernelState.new(n_features, int(n_labels), code, dtype)
+    rng = np.random.default_rng(options.seed)
+    batch = min(options.batch_size, n)
+    rates = min_lr * (max_lr / min_lr) ** (np.arange(steps) / (steps - 1))
+
+    order, pos = rng.permutation(n).astype(np.int64), 0
+    raw, smooth = [], []
+    average, best, reason, stopped = 0.0, math.inf, "reached --max-lr", False
+    for t, rate in enumerate(rates):
+        if pos + batch > n:
+            order, pos = rng.permutation(n).astype(np.int64), 0
+        rows = order[pos:pos + batch]
+        pos += batch
+        loss_sum, finite = kernels.run_epoch(
+            X.indptr, X.indices, data, y, rows, params, state, loss_code=losses.LOSS_CODES[options.loss],
+            optimizer_code=code, schedule_code=optim.SCHEDULE_CONSTANT, learning_rate=float(rate), decay=0.0,
+            l2=options.l2, batch_size=len(rows), lazy=options.lazy, **hyper)
+        loss = loss_sum / len(rows)
+        average = smoothing * average + (1.0 - smoothing) * loss
+        value = average / (1.0 - smoothing ** (t + 1))
+        raw.append(loss)
+        smooth.append(value)
+        if progress is not None:
+            progress({"stage": "probe", "step": t + 1, "steps": steps, "learning_rate": float(rate), "smoothed_loss": value})
+        if not finite or not math.isfinite(value) or not np.isfinite(params).all():
+            reason, stopped = f"loss not finite at learning rate {rate:.3g}", True
+            break
+        best = min(best, value)
+        if value > blowup * best:
+            reason, stopped = f"smoothed loss above {blowup:g} x its minimum at learning rate {rate:.3g}", True
+            break
+
+    k = len(smooth)
+    lr, raw, smooth = rates[:k], np.asarray(raw, dtype=np.float64), np.asarray(smooth, dtype=np.float64)
+    slopes = np.full(k, np.nan)
+    usable = k - 1 if stopped else k  # the step that stopped the probe is not a candidate
+    steepest = None
+    if usable >= 2:
+        slopes[:usable] = np.gradient(smooth[:usable], np.log10(lr[:usable]))
+        lowest = int(np.argmin(smooth[:usable]))  # candidates: the descent up to the lowest smoothed loss
+        if lowest >= 1 and slopes[:lowest + 1].min() < 0:
+            steepest = int(np.argmin(slopes[:lowest + 1]))
+    suggestion = None
+    if steepest is not None:  # read the rate where the smoothed value comes from: its mean lag earlier
+        lag = smoothing_lag(smoothing, steepest + 1)
+        suggestion = float(min_lr * (max_lr / min_lr) ** (max(0.0, steepest - lag) / (steps - 1)))
+    settings = {"optimizer": options.optimizer, "loss": options.loss, "batch_size": batch, "min_lr": min_lr, "max_lr": max_lr,
+                "steps": steps, "smoothing": smoothing, "blowup": blowup, "seed": options.seed,
+                "reference": "L. N. Smith, Cyclical Learning Rates for Training Neural Networks, 2017 (LR range test)"}
+    return ProbeResult(lr, raw, smooth, slopes, suggestion, steepest, reason, settings)
+
+
+def probe(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
+          options: TrainOptions | dict | None = None, fmt: str | None = None, text_column: str = "text",
+          label_column: str = "label", progress: Progress | None = None, **probe_options) -> ProbeResult:
+    """Read and featurize ``data`` as :func:`lintext.pipeline.train` does, then probe on its training rows.
+
+    ``dev`` / ``dev_fraction`` only decide which rows are held out (the probe never
+    looks at dev rows), so it sees the rows a ``train`` run with the same options trains on.
+    ``probe_options`` go to :func:`probe_learning_rate`.
+    """
+    options = _as(TrainOptions, options)
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, fmt, text_column, label_column, progress)
+    result = probe_learning_rate(prepared.X, prepared.y, len(prepared.labels), options, progress=progress, **probe_options)
+    result.settings["data"] = prepared.description
+    return result
+
+
+def probe_page(result: ProbeResult) -> str:
+    """``probe.html``: raw and smoothed loss against the learning rate, the suggestion marked."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(7, 4.2))
+    ax = fig.add_subplot()
+    ax.plot(result.learning_rates, result.losses, ".", ms=3, color="0.7", label="minibatch loss")
+    ax.plot(result.learning_rates, result.smoothed, "-", color="C0", label=f"smoothed (beta {result.settings.get('smoothing')})")
+    if result.suggestion is not None:
+        ax.axvline(result.suggestion, color="C3", ls="--", label=f"suggestion {result.suggestion:.3g}")
+    finite = result.smoothed[np.isfinite(result.smoothed)]
+    if finite.size:
+        ax.set_ylim(0, 1.15 * max(finite.max(), finite[0]))
+    ax.set_xscale("log")
+    ax.set_xlabel("learning rate")
+    ax.set_ylabel(f"training loss ({result.settings.get('loss')})")
+    ax.grid(True, alpha=0.3)
+    ax.legend(fontsize="small")
+    s = result.settings
+    text = (f"<p>{s.get('optimizer')}, batch size {s.get('batch_size')}, {len(result.learning_rates)} of {s.get('steps')} steps "
+            f"from {s.get('min_lr'):g} to {s.get('max_lr'):g}; stopped: {result.stop_reason}.</p>"
+            f"<p>Suggested learning rate: <b>{'none' if result.suggestion is None else f'{result.suggestion:.3g}'}</b> "
+            "(steepest descent of the smoothed loss against log learning rate). Method: L. N. Smith, "
+            "&ldquo;Cyclical Learning Rates for Training Neural Networks&rdquo;, 2017.</p>")
+    return html_page("lintext learning-rate probe", text + figure_svg(fig))
+
+
+# --------------------------------------------------------------------------- pages, shared with the sweep
+
+
+def figure_svg(fig) -> str:
+    """A matplotlib figure as an inline ``<svg>`` element (text drawn as paths: no fonts needed)."""
+    buf = io.StringIO()
+    fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None, "Creator": None, "Format": None, "Type": None})
+    text = buf.getvalue()
+    return text[text.index("<svg"):]
+
+
+def html_page(title: str, body: str) -> str:
+    """A self-contained HTML page: inline style, nothing loaded from elsewhere."""
+    style = ("body{font-family:sans-serif;margin:2em;max-width:72em}table{border-collapse:collapse}"
+             "td,th{padding:.2em .6em;border-bottom:1px solid #ddd;text-align:right}td:nth-child(-n+2),th{text-align:left}"
+             "tr.best{font-weight:bold;background:#eef6ee}svg{max-width:100%;height:auto}")
+    return (f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{html.escape(title)}</title>"
+            f"<style>{style}</style></head><body>\n<h1>{html.escape(title)}</h1>\n{body}\n</body></html>\n")
+
+
+def format_cell(value, digits: int = 4) -> str:
+    """A table cell: a float with ``digits`` decimals, an empty cell for a missing value."""
+    return "" if value is None else (f"{value:.{digits}f}" if isinstance(value, float) else str(value))
