@@ -17,8 +17,9 @@ from .io import Corpus, read_corpus  # noqa: E402
 from .model import Model, load_model  # noqa: E402
 from .pipeline import evaluate, train  # noqa: E402
 from .train import TrainOptions  # noqa: E402
+from .estimator import LinTextClassifier  # noqa: E402
 
 __all__ = [
-    "ConfigError", "Corpus", "DivergenceError", "Featurizer", "FeaturizerConfig", "InputError", "LinTextError",
+    "ConfigError", "Corpus", "DivergenceError", "Featurizer", "FeaturizerConfig", "InputError", "LinTextClassifier", "LinTextError",
     "Model", "ModelFileError", "TrainOptions", "evaluate", "load_model", "read_corpus", "train",
 ]
