@@ -261,7 +261,7 @@ def train(
     seed: Annotated[int, typer.Option("--seed", help="Seed for the dev split and the shuffling.")] = DEFAULTS.seed,
     dense: Annotated[bool, typer.Option("--dense", help="Update every coordinate every step (slow reference mode).")] = False,
     float32: Annotated[bool, typer.Option("--float32", help="Keep weights and optimizer state in float32.")] = False,
-    jobs: Annotated[int, typer.Option("--jobs", help="Processes for featurizing (0 = all cores).")] = 1,
+    jobs: Annotated[int, typer.Option("--jobs", help="Processes for featurizing large corpora (0 = all cores).")] = 0,
     no_report: Annotated[bool, typer.Option("--no-report", help="Skip features.csv and report.html.")] = False,
     quiet: QuietOpt = False,
 ):

@@ -75,7 +75,7 @@ def train(
 
     report({"stage": "featurizing", "documents": len(train_set)})
     started = time.perf_counter()
-    feat = Featurizer(fconfig, **({"n_jobs": n_jobs} if n_jobs != 1 else {}))
+    feat = Featurizer(fconfig, n_jobs=n_jobs)
     X = feat.fit_transform(train_set.texts)
     X_dev = feat.transform(dev_set.texts) if dev_set is not None else None
     featurize_seconds = time.perf_counter() - started
