@@ -66,6 +66,13 @@ class TrainOptions:
     RMSProp and AdaDelta do poorly with batch size 1 under lazy updates and prefer 32 or more.
     With ``l2 > 0``, only SGD and AdaGrad (any batch size) minimise the stated objective in
     lazy mode; see :mod:`lintext.kernels` for the decaying rules.
+
+    ``threads`` is how many threads large batches, the end-of-epoch catch-up and dev scoring
+    may use (``None`` or 0: all of numba's threads, ``NUMBA_NUM_THREADS``, by default one per
+    core). The weights do not depend on it, bit for bit; batches of the default size run on
+    one thread whatever it says (see :mod:`lintext.kernels`, "Threads").
+    ``dtype="float32"`` keeps weights and optimizer state in float32 (half the memory; ``X``'s
+    values are converted once); arithmetic stays float64.
     """
 
     loss: str = "softmax"
@@ -87,6 +94,7 @@ class TrainOptions:
     epsilon: float | None = None
     rho: float | None = None
     dtype: str = "float64"
+    threads: int | None = None
 
     def validate(self) -> None:
         """Raise :class:`~lintext.errors.ConfigError` naming the first bad option and its value."""
@@ -112,6 +120,8 @@ class TrainOptions:
                 _number(name, getattr(self, name), low=0.0, high=1.0, high_open=True)
         if self.epsilon is not None:
             _number("epsilon", self.epsilon, low=0.0, low_open=True)
+        if self.threads is not None:
+            _integer("threads", self.threads, low=0)
         if self.schedule in ("inverse", "inverse_sqrt") and self.optimizer != "sgd":
             raise ConfigError("schedule", self.schedule,
                               f"only for optimizer 'sgd'; {self.optimizer} adapts its own steps "
@@ -200,12 +210,13 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
 def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     dtype = np.dtype(options.dtype)
     n, n_features = X.shape
-    data = np.ascontiguousarray(X.data, dtype=dtype)
+    data = np.ascontiguousarray(X.data, dtype=dtype)  # float32: converted once, here
     code = optim.OPTIMIZER_CODES[options.optimizer]
     rule = optim.make_rule(options.optimizer, beta1=options.beta1, beta2=options.beta2,
                            epsilon=options.epsilon, rho=options.rho)
     hyper = dict(beta1=getattr(rule, "beta1", 0.9), beta2=getattr(rule, "beta2", 0.999),
                  rho=getattr(rule, "rho", 0.9), epsilon=getattr(rule, "epsilon", 1e-8))
+    threads = kernels.resolve_threads(options.threads)
     base_lr = options.base_learning_rate()
     lr = base_lr
     params = np.zeros((n_features + 1, n_labels), dtype=dtype)
@@ -213,6 +224,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     rng = np.random.default_rng(options.seed)
     schedule_code = optim.SCHEDULE_CODES[options.schedule]
     early_stopping = X_dev is not None and options.patience > 0
+    dev = None if X_dev is None else (X_dev.indptr, X_dev.indices, X_dev.data)
 
     history: list[dict] = []
     monitor = _Monitor(options.stop_metric if X_dev is not None else "train_loss", options.min_improvement)
@@ -225,23 +237,29 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     for epoch in range(1, options.epochs + 1):
         started = time.perf_counter()
         order = rng.permutation(n).astype(np.int64)
+        # flush=False: the decaying rules leave the state decay of absent rows to their next
+        # touch (the weights are exact after every epoch either way); flushed once below.
         loss_sum, finite = kernels.run_epoch(
             X.indptr, X.indices, data, y, order, params, state, loss_code=losses.LOSS_CODES[options.loss],
             optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
-            l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, **hyper)
+            l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
+            **hyper)
         train_loss = loss_sum / n
         if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
-                or not np.isfinite(params).all()):
+                or not kernels.all_finite(params)):
             raise DivergenceError(base_lr, epoch, train_loss, options.optimizer)
         if epoch == 1:
             reference_loss = max(train_loss, zero_model_loss)
         last_lr = optim.schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)
-        row = _history_row(epoch, train_loss, last_lr, params, options.loss, X_dev, y_dev)
+        row = _history_row(epoch, train_loss, last_lr, params, options.loss, dev, y_dev, threads)
         improved = monitor.update(row)
         if improved:
             best_epoch = epoch
-            if early_stopping:
-                best_params = params.copy()
+            if early_stopping:  # one buffer, reused: at most one extra copy of the weights
+                if best_params is None:
+                    best_params = params.copy()
+                else:
+                    np.copyto(best_params, params)
         row["seconds"] = time.perf_counter() - started
         history.append(row)
         if progress is not None:
@@ -252,6 +270,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
         if options.schedule == "plateau":
             lr = optim.plateau_update(lr, improved, options.plateau_factor)
 
+    kernels.flush(params, state, optimizer_code=code, beta1=hyper["beta1"], beta2=hyper["beta2"],
+                  rho=hyper["rho"], threads=threads)
     if early_stopping and best_params is not None:
         params = best_params
     else:
@@ -288,19 +308,24 @@ class _Monitor:
         return improved
 
 
-def _history_row(epoch, train_loss, lr, params, loss, X_dev, y_dev) -> dict:
+def _history_row(epoch, train_loss, lr, params, loss, dev, y_dev, threads=1) -> dict:
     row = {"epoch": epoch, "train_loss": float(train_loss), "dev_loss": None, "dev_accuracy": None,
            "dev_macro_f1": None, "learning_rate": None if lr is None else float(lr)}
-    if X_dev is not None:
-        row.update(dev_metrics(X_dev, y_dev, params[:-1], params[-1], loss))
+    if dev is not None:
+        S = kernels.decision_scores(*dev, params, threads=threads)
+        row.update(_metrics(S, y_dev, params.shape[1], loss))
     return row
 
 
 def dev_metrics(X_dev, y_dev, W, b, loss: str) -> dict:
     """Dev loss (mean, no L2), accuracy and macro-F1 over all labels (``sklearn.metrics``)."""
     S = np.asarray(X_dev @ W.astype(np.float64, copy=False)) + b
+    return _metrics(S, y_dev, W.shape[1], loss)
+
+
+def _metrics(S, y_dev, n_labels, loss) -> dict:
     pred = S.argmax(axis=1)
-    every = np.arange(W.shape[1])
+    every = np.arange(n_labels)
     return {
         "dev_loss": losses.mean_loss(loss, S, y_dev),
         "dev_accuracy": float(accuracy_score(y_dev, pred)),
@@ -308,12 +333,19 @@ def dev_metrics(X_dev, y_dev, W, b, loss: str) -> dict:
     }
 
 
-def _feature_stats(rule, state, code, lr, n_features) -> dict:
+def _feature_stats(rule, state, code, lr, n_features, block=1 << 14) -> dict:
     count = state.stat_update_count[:n_features].copy()
-    n_rows, n_labels = n_features + 1, state.first_moment.shape[1]
+    n_labels = state.first_moment.shape[1]
+    step = np.empty(n_features)
+    rule_state = state.rule_state(code)
+    # Blocks of rows: the rule's effective step is computed on whole arrays, and at once its
+    # temporaries would be several times the size of the weights.
     with np.errstate(divide="ignore", invalid="ignore"):
-        step = np.asarray(rule.effective_step(state.rule_state(code), lr), dtype=np.float64)
-    step = np.broadcast_to(step, (n_rows, n_labels))[:n_features].mean(axis=1)
+        for lo in range(0, n_features, block):
+            hi = min(lo + block, n_features)
+            part = np.asarray(rule.effective_step({k: v[lo:hi] for k, v in rule_state.items()}, lr),
+                              dtype=np.float64)
+            step[lo:hi] = np.broadcast_to(part, (hi - lo, n_labels)).mean(axis=1)
     return {"update_count": count, "abs_update_sum": state.stat_abs_update_sum[:n_features].copy(),
             "effective_step": np.where(count > 0, step, np.nan)}
 
@@ -343,7 +375,8 @@ def _fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress):
     def record(theta, value):
         W, b = unpack(theta)
         data_loss = value - 0.5 * options.l2 * float(np.sum(W * W))
-        row = _history_row(len(history) + 1, data_loss, None, np.vstack([W, b]), options.loss, X_dev, y_dev)
+        dev = None if X_dev is None else (X_dev.indptr, X_dev.indices, X_dev.data)
+        row = _history_row(len(history) + 1, data_loss, None, np.vstack([W, b]), options.loss, dev, y_dev)
         now = time.perf_counter()
         row["seconds"] = now - clock[0]
         clock[0] = now

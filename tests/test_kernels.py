@@ -138,6 +138,25 @@ def test_kernel_matches_numpy_specification(name, loss, batch_size):
     np.testing.assert_allclose(ks.stat_abs_update_sum, stat_abs, rtol=0, atol=1e-10)
 
 
+@pytest.mark.parametrize("l2", [0.0, 0.05])
+@pytest.mark.parametrize("batch_size", [1, 2])
+@pytest.mark.parametrize("name", ["sgd", "adagrad"])
+def test_hinge_step_on_active_labels_matches_specification(name, batch_size, l2):
+    # With the hinge loss and 8 labels a batch of one or two examples has at most 4 labels with
+    # a non-zero gradient: SGD and AdaGrad then step on those only (rows without L2; the bias
+    # always), which must equal the full step of the specification.
+    schedule, decay = ("inverse", 0.1) if name == "sgd" else ("constant", 0.0)
+    pk, ks, pr, rs, step, out = run_both(name, "hinge", batch_size, lazy=True, l2=l2, schedule=schedule,
+                                         decay=decay, n_labels=8)
+    np.testing.assert_allclose(pk, pr, rtol=0, atol=1e-10)
+    assert np.abs(pk).max() > 1e-3
+    for key, arr in rs.items():
+        np.testing.assert_allclose(ks.rule_state(optim.OPTIMIZER_CODES[name])[key], arr, rtol=0, atol=1e-10)
+    count = sum(c for _, _, c, _ in out)
+    np.testing.assert_array_equal(ks.stat_update_count, count)
+    np.testing.assert_allclose(ks.stat_abs_update_sum, sum(a for _, _, _, a in out), rtol=0, atol=1e-10)
+
+
 @pytest.mark.parametrize("name", OPTIMIZERS)
 def test_kernel_dense_mode_matches_numpy_specification(name):
     # Oracle: reference_epoch with every row updated every step (absent features: g = 0).
@@ -292,3 +311,164 @@ def test_batch_size_at_least_n_is_one_full_batch_step():
     _, gW, gb = losses.objective("softmax", X, y, np.zeros((X.shape[1], 3)), np.zeros(3), 0.0)
     np.testing.assert_allclose(params[:-1], -0.5 * gW, atol=1e-14)
     np.testing.assert_allclose(params[-1], -0.5 * gb, atol=1e-14)
+
+
+# --------------------------------------------------------------------------- speed work: same results
+
+
+def _epochs(name, threads, batch_size, lazy=True, l2=0.0, epochs=2, flush=True, n=400, n_features=120,
+            n_labels=5, loss=0, dtype=np.float64):
+    X, y = random_problem(n=n, n_features=n_features, n_labels=n_labels, density=0.08, seed=11)
+    X = X.astype(dtype)
+    code = optim.OPTIMIZER_CODES[name]
+    params = np.zeros((n_features + 1, n_labels), dtype=dtype)
+    st = kernels.KernelState.new(n_features, n_labels, code, dtype)
+    rng = np.random.default_rng(5)
+    losses_ = []
+    for _ in range(epochs):
+        loss_sum, finite = kernels.run_epoch(
+            X.indptr, X.indices, X.data, y, rng.permutation(n), params, st, loss_code=loss,
+            optimizer_code=code, schedule_code=0, learning_rate=LRS[name], l2=l2,
+            batch_size=batch_size, lazy=lazy, flush=flush, threads=threads)
+        assert finite
+        losses_.append(loss_sum)
+    return params, st, losses_
+
+
+@pytest.mark.parametrize("name", OPTIMIZERS)
+@pytest.mark.parametrize("batch_size,lazy,l2", [(1, True, 0.0), (16, True, 0.0), (16, True, 0.05),
+                                                (1000, True, 0.0), (16, False, 0.05)])
+def test_parallel_and_single_thread_give_identical_weights(monkeypatch, name, batch_size, lazy, l2):
+    # Determinism across thread counts (lintext.kernels, "Threads"): with the threshold at 0,
+    # every batch and the flush take the parallel path on two threads; the weights, the state,
+    # the statistics and the losses must be the same bits as on one thread.
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK", 0)
+    p1, s1, l1 = _epochs(name, 1, batch_size, lazy, l2)
+    p2, s2, l2_ = _epochs(name, 2, batch_size, lazy, l2)
+    assert np.abs(p1).max() > 1e-4  # it did train
+    assert p1.tobytes() == p2.tobytes()
+    assert s1.info.tobytes() == s2.info.tobytes()
+    for key in ("sum_sq_grad", "first_moment", "second_moment", "avg_sq_update"):
+        assert getattr(s1, key).tobytes() == getattr(s2, key).tobytes()
+    assert l1 == l2_
+
+
+@pytest.mark.parametrize("name", ["sgd", "adagrad"])
+def test_parallel_hinge_step_on_active_labels_is_identical(monkeypatch, name):
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK", 0)
+    p1, s1, l1 = _epochs(name, 1, 2, loss=1, n_labels=12)
+    p2, s2, l2_ = _epochs(name, 2, 2, loss=1, n_labels=12)
+    assert p1.tobytes() == p2.tobytes() and s1.info.tobytes() == s2.info.tobytes() and l1 == l2_
+
+
+def test_parallel_path_is_taken_and_scores_match(monkeypatch):
+    # The threshold decides: 0 sends every batch to the parallel functions (watched here).
+    import lintext.kernels_compiled as kc
+
+    if kernels.max_threads() < 2:
+        pytest.skip("numba has one thread here")
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK", 0)
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK_OUTSIDE_BATCHES", 0)
+    X, y = random_problem(n=200, n_features=50, n_labels=4, density=0.1, seed=2)
+    params = np.random.default_rng(0).normal(size=(51, 4))
+    serial = kernels.decision_scores(X.indptr, X.indices, X.data, params, threads=1)
+    parallel = kernels.decision_scores(X.indptr, X.indices, X.data, params, threads=2)
+    assert serial.tobytes() == parallel.tobytes()
+    np.testing.assert_allclose(serial, X @ params[:-1] + params[-1], rtol=1e-13, atol=1e-13)
+    calls = []
+    real = kc.run_batch_threads
+
+    def watch(*args):
+        calls.append(args[-1])  # n_threads
+        return real(*args)
+
+    monkeypatch.setattr(kernels, "run_batch_threads", watch)
+    st = kernels.KernelState.new(50, 4, optim.ADAM)
+    kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(200), np.zeros((51, 4)), st, loss_code=0,
+                      optimizer_code=optim.ADAM, schedule_code=0, learning_rate=0.01, batch_size=50, threads=2)
+    assert calls == [2, 2, 2, 2]  # four batches of 50, each on two threads
+    calls.clear()
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK", 1 << 40)
+    kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(200), np.zeros((51, 4)), st, loss_code=0,
+                      optimizer_code=optim.ADAM, schedule_code=0, learning_rate=0.01, batch_size=50, threads=2)
+    assert calls == []  # below the threshold: one thread, epoch_kernel
+
+
+@pytest.mark.parametrize("name", ["adadelta", "rmsprop", "adam"])
+def test_deferred_flush_keeps_the_weights_and_settles_the_state(name):
+    # flush=False (lintext.kernels): the decay owed by absent rows waits for their next touch.
+    # After one epoch the weights are the same bits (the flush never moves these rules'
+    # weights); after more, the same up to rounding (rho^a * rho^b against rho^(a+b)); the
+    # state after kernels.flush agrees with the flushed one.
+    one_f, st_f, _ = _epochs(name, 1, 4, epochs=1, flush=True)
+    one_d, st_d, _ = _epochs(name, 1, 4, epochs=1, flush=False)
+    assert one_f.tobytes() == one_d.tobytes()
+    assert st_d.pending and not st_f.pending
+    p_f, s_f, l_f = _epochs(name, 1, 4, epochs=3, flush=True)
+    p_d, s_d, l_d = _epochs(name, 1, 4, epochs=3, flush=False)
+    np.testing.assert_allclose(p_d, p_f, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(l_d, l_f, rtol=1e-12)
+    code = optim.OPTIMIZER_CODES[name]
+    kernels.flush(p_d, s_d, optimizer_code=code, rho=0.9)
+    assert not s_d.pending and np.all(s_d.last_step == s_d.step)
+    for key, arr in s_f.rule_state(code).items():
+        np.testing.assert_allclose(s_d.rule_state(code)[key], arr, rtol=1e-9, atol=1e-15)
+
+
+def test_pending_state_is_refused_by_rules_that_must_flush():
+    _, st, _ = _epochs("adam", 1, 4, epochs=1, flush=False)
+    with pytest.raises(ValueError, match="not flushed"):
+        X, y = random_problem(n=400, n_features=120, n_labels=5, density=0.08, seed=11)
+        kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(400), np.zeros((121, 5)), st,
+                          loss_code=0, optimizer_code=optim.SGD, schedule_code=0, learning_rate=0.1)
+
+
+def test_float32_state_and_weights_agree_with_float64():
+    for name in OPTIMIZERS:
+        p64, s64, _ = _epochs(name, 1, 8)
+        p32, s32, _ = _epochs(name, 1, 8, dtype=np.float32)
+        assert p32.dtype == np.float32
+        assert all(a.dtype == np.float32 for a in s32.rule_state(optim.OPTIMIZER_CODES[name]).values()
+                   if a.dtype.kind == "f")
+        np.testing.assert_allclose(p32, p64, atol=2e-4 * np.abs(p64).max())
+
+
+def test_long_runs_keep_subnormal_numbers_out():
+    # Adam's beta1 ** count falls below 1e-100 after 2186 updates (0.9^2186 = 1e-100): it is
+    # then stored as 0 (1 - 0 == 1 - 1e-100 exactly), never as a subnormal number, whose
+    # arithmetic is very slow; the same for the decay of long-absent rows.
+    n = 2400
+    rows = np.r_[np.arange(n), 0]
+    cols = np.r_[np.zeros(n, dtype=int) + 1, 0]  # feature 0 only in the first example
+    X = sp.csr_matrix((np.ones(n + 1), (rows, cols)), shape=(n, 2))
+    y = np.arange(n, dtype=np.int64) % 3
+    params = np.zeros((3, 3))
+    st = kernels.KernelState.new(2, 3, optim.ADAM)
+    kernels.run_epoch(X.indptr, X.indices, X.data, y, np.arange(n), params, st, loss_code=0,
+                      optimizer_code=optim.ADAM, schedule_code=0, learning_rate=0.01, batch_size=1)
+    assert st.info_f[-1, kc_pow1()] == 0.0 and st.update_count[-1] == n
+    for arr in (st.first_moment, st.second_moment, params):
+        assert not np.any((arr != 0) & (np.abs(arr) < np.finfo(np.float64).tiny))
+    assert np.all(st.first_moment[0] == 0.0)  # 0.9^2399 * m: below 1e-100, so 0
+
+
+def kc_pow1():
+    from lintext.kernels_compiled import POW1
+    return POW1
+
+
+def test_numba_cache_folder(tmp_path, monkeypatch):
+    # Beside the package when it is writable; else the user's cache folder, unless the user
+    # chose one with NUMBA_CACHE_DIR.
+    monkeypatch.delenv("NUMBA_CACHE_DIR", raising=False)
+    writable = tmp_path / "pkg"
+    writable.mkdir()
+    assert kernels.numba_cache_folder(writable) is None
+    monkeypatch.setattr(kernels.os, "access", lambda path, mode: False)
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    assert kernels.numba_cache_folder(writable) == str(tmp_path / "cache" / "lintext" / "numba")
+    monkeypatch.delenv("XDG_CACHE_HOME")
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    assert kernels.numba_cache_folder(writable) == str(tmp_path / "home" / ".cache" / "lintext" / "numba")
+    monkeypatch.setenv("NUMBA_CACHE_DIR", str(tmp_path / "mine"))
+    assert kernels.numba_cache_folder(writable) is None

@@ -9,7 +9,7 @@ import pytest
 import scipy.sparse as sp
 from sklearn.linear_model import LogisticRegression
 
-from lintext import losses
+from lintext import kernels, losses
 from lintext.errors import ConfigError, DivergenceError
 from lintext.train import TrainOptions, TrainResult, _Monitor, fit
 
@@ -178,7 +178,7 @@ def test_every_rule_learns_with_its_default_learning_rate(optimizer, loss):
     ("optimizer", "nesterov"), ("loss", "squared"), ("schedule", "cosine"), ("learning_rate", -1.0),
     ("learning_rate", float("nan")), ("epochs", 0), ("batch_size", 0), ("patience", -1),
     ("stop_metric", "f2"), ("dtype", "float16"), ("plateau_factor", 1.5), ("l2", -0.1),
-    ("beta1", 1.0), ("epochs", 2.5), ("seed", -3),
+    ("beta1", 1.0), ("epochs", 2.5), ("seed", -3), ("threads", -1), ("threads", 1.5),
 ])
 def test_bad_options_raise_config_error_naming_them(field, value):
     with pytest.raises(ConfigError) as err:
@@ -206,3 +206,43 @@ def test_lbfgs_early_stopping_restores_best_iteration():
     assert result.best_epoch == 1 and len(result.history) == 3 and result.stopped_early
     first = fit(X, y, 3, options=TrainOptions(optimizer="lbfgs", epochs=1))
     np.testing.assert_array_equal(result.coef, first.coef)
+
+
+@pytest.mark.parametrize("optimizer,batch_size", [("adagrad", 8), ("adam", 8), ("sgd", 64), ("rmsprop", 10_000)])
+def test_threads_do_not_change_the_weights(monkeypatch, optimizer, batch_size):
+    # With the threshold at 0 every batch, the flush and the dev scoring run on two threads
+    # (lintext.kernels, "Threads"); the model and its history must be the same bits as on one.
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK", 0)
+    monkeypatch.setattr(kernels, "PARALLEL_MIN_WORK_OUTSIDE_BATCHES", 0)
+    X, y = problem(n=400)
+    X_dev, y_dev = problem(n=100, seed=1)
+    opts = dict(optimizer=optimizer, batch_size=batch_size, epochs=3, patience=2)
+    one = fit(X, y, 3, X_dev, y_dev, TrainOptions(threads=1, **opts))
+    two = fit(X, y, 3, X_dev, y_dev, TrainOptions(threads=2, **opts))
+    assert one.coef.tobytes() == two.coef.tobytes() and one.intercept.tobytes() == two.intercept.tobytes()
+    strip = lambda h: [{k: v for k, v in row.items() if k != "seconds"} for row in h]  # noqa: E731
+    assert strip(one.history) == strip(two.history)
+    for key in one.feature_stats:
+        np.testing.assert_array_equal(one.feature_stats[key], two.feature_stats[key])
+
+
+def test_float32_mode_halves_weights_and_state_and_converts_x_once(monkeypatch):
+    # What the kernel receives: float32 weights and optimizer state (half the bytes of float64),
+    # and one float32 copy of X's values made before the first epoch, reused by every epoch.
+    seen = []
+    real = kernels.run_epoch
+
+    def watch(indptr, indices, data, y, order, params, state, **kwargs):
+        seen.append((id(data), data.dtype, params.dtype, state.second_moment.dtype, state.first_moment.nbytes))
+        return real(indptr, indices, data, y, order, params, state, **kwargs)
+
+    monkeypatch.setattr(kernels, "run_epoch", watch)
+    X, y = problem()
+    r32 = fit(X, y, 3, options=TrainOptions(optimizer="adam", epochs=3, patience=0, dtype="float32"))
+    r64 = fit(X, y, 3, options=TrainOptions(optimizer="adam", epochs=3, patience=0))
+    first32, first64 = seen[0], seen[3]
+    assert len({s[0] for s in seen[:3]}) == 1  # the same converted array every epoch
+    assert first32[1:4] == (np.float32, np.float32, np.float32)
+    assert first64[1:4] == (np.float64, np.float64, np.float64)
+    assert first32[4] * 2 == first64[4] == 51 * 3 * 8
+    assert r32.coef.nbytes * 2 == r64.coef.nbytes
