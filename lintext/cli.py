@@ -261,6 +261,7 @@ def train(
     seed: Annotated[int, typer.Option("--seed", help="Seed for the dev split and the shuffling.")] = DEFAULTS.seed,
     dense: Annotated[bool, typer.Option("--dense", help="Update every coordinate every step (slow reference mode).")] = False,
     float32: Annotated[bool, typer.Option("--float32", help="Keep weights and optimizer state in float32.")] = False,
+    threads: Annotated[Optional[int], typer.Option("--threads", help="Threads for large batches (default: all cores); results do not depend on it.")] = None,
     jobs: Annotated[int, typer.Option("--jobs", help="Processes for featurizing large corpora (0 = all cores).")] = 0,
     no_report: Annotated[bool, typer.Option("--no-report", help="Skip features.csv and report.html.")] = False,
     quiet: QuietOpt = False,
@@ -273,7 +274,7 @@ def train(
     options = TrainOptions(
         loss=loss, optimizer=optimizer, learning_rate=learning_rate, schedule=schedule.replace("-", "_"), epochs=epochs,
         batch_size=batch_size, patience=patience, min_improvement=min_improvement, stop_metric=stop_metric.replace("-", "_"),
-        l2=l2, seed=seed, lazy=not dense, dtype="float32" if float32 else "float64",
+        l2=l2, seed=seed, lazy=not dense, dtype="float32" if float32 else "float64", threads=threads,
     )
     validate_options(options)
     if not 0 <= dev_fraction < 1:

@@ -172,6 +172,7 @@ def test_malformed_model_exit_2(cli_model, small_split, tmp_path, how, message):
         (["--loss", "squared"], "--loss='squared'"),
         (["--epochs", "0"], "--epochs=0"),
         (["--batch-size", "0"], "--batch-size=0"),
+        (["--threads", "-2"], "--threads=-2"),
     ],
 )
 def test_train_rejects_bad_values_up_front(small_split, tmp_path, args, message):
