@@ -26,7 +26,6 @@ from .features import FeaturizerConfig, corpus_stats, parse_range
 from .io import read_corpus
 from . import pipeline
 from .model import atomic_file, load_model
-from .report import write_report
 from .train import TrainOptions
 
 app = typer.Typer(
@@ -287,6 +286,8 @@ def train(
         )
     finally:
         display.close()
+    from .report import write_report  # matplotlib loads only when a report is written
+
     with status("Writing the model and its report", quiet):
         where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)))
     print_training_summary(model)
