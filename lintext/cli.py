@@ -10,8 +10,10 @@ import contextlib
 import csv
 import json
 import functools
+import inspect
 import os
 import sys
+import typing
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -99,6 +101,31 @@ def _number(option: str, text: str) -> float | int:
     return int(value) if value.is_integer() and "." not in text else value
 
 
+FEATURIZER_OPTIONS = [
+    ("ngrams", NgramsOpt, "1-2"), ("char_ngrams", CharNgramsOpt, None), ("min_df", MinDfOpt, DEFAULT_MIN_DF),
+    ("max_df", MaxDfOpt, "1.0"), ("max_features", MaxFeaturesOpt, None), ("weighting", WeightingOpt, "tfidf"),
+    ("normalize", NormalizeOpt, True), ("lowercase", LowercaseOpt, True), ("hash_bits", HashBitsOpt, None),
+]
+
+
+def featurizer_options(func):
+    """Give a command the featurizer options; it receives them as ``featurizer``, a validated FeaturizerConfig."""
+    signature = inspect.signature(func)
+    hints = typing.get_type_hints(func, include_extras=True)  # resolve string annotations in func's module
+    own = [p.replace(annotation=hints.get(p.name, p.annotation)) for p in signature.parameters.values()
+           if p.name != "featurizer"]
+    added = [inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, default=default, annotation=kind)
+             for name, kind, default in FEATURIZER_OPTIONS]
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        values = {name: kwargs.pop(name) for name, _, _ in FEATURIZER_OPTIONS}
+        return func(*args, featurizer=featurizer_config(**values), **kwargs)
+
+    wrapper.__signature__ = signature.replace(parameters=own + added)
+    return wrapper
+
+
 def featurizer_config(ngrams, char_ngrams, min_df, max_df, max_features, weighting, normalize, lowercase, hash_bits):
     """Build and validate a featurizer configuration from command-line values."""
     return FeaturizerConfig(
@@ -131,27 +158,20 @@ def main(
 
 
 @command
+@featurizer_options
 def stats(
     data: DataPath,
     fmt: FormatOpt = None,
     text_column: TextColumnOpt = "text",
     label_column: LabelColumnOpt = "label",
-    ngrams: NgramsOpt = "1-2",
-    char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = DEFAULT_MIN_DF,
-    max_df: MaxDfOpt = "1.0",
-    max_features: MaxFeaturesOpt = None,
-    weighting: WeightingOpt = "tfidf",
-    normalize: NormalizeOpt = True,
-    lowercase: LowercaseOpt = True,
-    hash_bits: HashBitsOpt = None,
+    featurizer: FeaturizerConfig = None,
     quiet: QuietOpt = False,
 ):
     """Describe a labelled corpus: documents, labels, and the feature space it gives.
 
     Example: lintext stats data/demo/train.csv --ngrams 1-2 --min-df 2
     """
-    config = featurizer_config(ngrams, char_ngrams, min_df, max_df, max_features, weighting, normalize, lowercase, hash_bits)
+    config = featurizer
     with status(f"Reading {data}", quiet):
         corpus = read_corpus(data, fmt, text_column, label_column)
     with status("Featurizing", quiet):
@@ -229,6 +249,7 @@ class EpochDisplay:
 
 
 @command
+@featurizer_options
 def train(
     data: DataPath,
     out_dir: Annotated[Path, typer.Option("--out", help="Model directory to write (replaced atomically).")],
@@ -238,15 +259,7 @@ def train(
     fmt: FormatOpt = None,
     text_column: TextColumnOpt = "text",
     label_column: LabelColumnOpt = "label",
-    ngrams: NgramsOpt = "1-2",
-    char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = DEFAULT_MIN_DF,
-    max_df: MaxDfOpt = "1.0",
-    max_features: MaxFeaturesOpt = None,
-    weighting: WeightingOpt = "tfidf",
-    normalize: NormalizeOpt = True,
-    lowercase: LowercaseOpt = True,
-    hash_bits: HashBitsOpt = None,
+    featurizer: FeaturizerConfig = None,
     loss: Annotated[str, typer.Option("--loss", help="softmax (probabilities) or hinge (multiclass, Crammer-Singer).")] = DEFAULTS.loss,
     optimizer: Annotated[str, typer.Option("--optimizer", help="sgd, adagrad, adadelta, rmsprop, adam or lbfgs.")] = DEFAULTS.optimizer,
     learning_rate: Annotated[Optional[float], typer.Option("--learning-rate", help="Step size (default: the optimizer's own).")] = None,
@@ -269,7 +282,7 @@ def train(
 
     Example: lintext train data/demo/train.csv --dev data/demo/dev.csv --test data/demo/test.csv --out models/demo
     """
-    fconfig = featurizer_config(ngrams, char_ngrams, min_df, max_df, max_features, weighting, normalize, lowercase, hash_bits)
+    fconfig = featurizer
     options = TrainOptions(
         loss=loss, optimizer=optimizer, learning_rate=learning_rate, schedule=schedule.replace("-", "_"), epochs=epochs,
         batch_size=batch_size, patience=patience, min_improvement=min_improvement, stop_metric=stop_metric.replace("-", "_"),

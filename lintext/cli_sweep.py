@@ -10,9 +10,9 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-from .cli import (DEFAULTS, CharNgramsOpt, DataPath, EpochDisplay, FormatOpt, HashBitsOpt, LabelColumnOpt, LowercaseOpt,
-                  MaxDfOpt, MaxFeaturesOpt, MinDfOpt, NgramsOpt, NormalizeOpt, QuietOpt, TextColumnOpt, WeightingOpt,
-                  DEFAULT_MIN_DF, command, err, featurizer_config, out, show_progress, status, validate_options)
+from .cli import (DEFAULTS, DataPath, EpochDisplay, FormatOpt, LabelColumnOpt, QuietOpt, TextColumnOpt, command, err,
+                  featurizer_options, out, show_progress, status, validate_options)
+from .features import FeaturizerConfig
 from .errors import ConfigError, LinTextError
 from .train import TrainOptions
 
@@ -44,6 +44,7 @@ class SweepDisplay(EpochDisplay):
 
 
 @command
+@featurizer_options
 def sweep(
     data: DataPath,
     out_dir: Annotated[Path, typer.Option("--out", help="Folder for sweep.csv, sweep.json, sweep.html and best/ (replaced atomically).")],
@@ -55,15 +56,7 @@ def sweep(
     fmt: FormatOpt = None,
     text_column: TextColumnOpt = "text",
     label_column: LabelColumnOpt = "label",
-    ngrams: NgramsOpt = "1-2",
-    char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = DEFAULT_MIN_DF,
-    max_df: MaxDfOpt = "1.0",
-    max_features: MaxFeaturesOpt = None,
-    weighting: WeightingOpt = "tfidf",
-    normalize: NormalizeOpt = True,
-    lowercase: LowercaseOpt = True,
-    hash_bits: HashBitsOpt = None,
+    featurizer: FeaturizerConfig = None,
     loss: Annotated[str, typer.Option("--loss", help="softmax (probabilities) or hinge (multiclass, Crammer-Singer).")] = DEFAULTS.loss,
     schedule: Annotated[str, typer.Option("--schedule", help="constant or plateau (inverse, inverse-sqrt: sgd only).")] = DEFAULTS.schedule,
     epochs: Annotated[int, typer.Option("--epochs", help="Most epochs per run.")] = DEFAULTS.epochs,
@@ -85,7 +78,7 @@ def sweep(
 
     from . import sweep as sweeping
 
-    fconfig = featurizer_config(ngrams, char_ngrams, min_df, max_df, max_features, weighting, normalize, lowercase, hash_bits)
+    fconfig = featurizer
     names = sweeping.parse_optimizers(optimizers, "--optimizers")
     rates = sweeping.parse_learning_rates(learning_rates, "--learning-rates")
     options = TrainOptions(
@@ -133,6 +126,7 @@ def sweep(
 
 
 @command
+@featurizer_options
 def probe(
     data: DataPath,
     out_dir: Annotated[Optional[Path], typer.Option("--out", help="Folder for probe.csv, probe.json and probe.html (the plot).")] = None,
@@ -146,15 +140,7 @@ def probe(
     fmt: FormatOpt = None,
     text_column: TextColumnOpt = "text",
     label_column: LabelColumnOpt = "label",
-    ngrams: NgramsOpt = "1-2",
-    char_ngrams: CharNgramsOpt = None,
-    min_df: MinDfOpt = DEFAULT_MIN_DF,
-    max_df: MaxDfOpt = "1.0",
-    max_features: MaxFeaturesOpt = None,
-    weighting: WeightingOpt = "tfidf",
-    normalize: NormalizeOpt = True,
-    lowercase: LowercaseOpt = True,
-    hash_bits: HashBitsOpt = None,
+    featurizer: FeaturizerConfig = None,
     loss: Annotated[str, typer.Option("--loss", help="softmax or hinge.")] = DEFAULTS.loss,
     batch_size: Annotated[int, typer.Option("--batch-size", help="Examples per step, as you will train.")] = DEFAULTS.batch_size,
     l2: Annotated[float, typer.Option("--l2", help="L2 penalty (0 = none).")] = DEFAULTS.l2,
@@ -169,7 +155,7 @@ def probe(
     """
     from .probe import probe as run_probe
 
-    fconfig = featurizer_config(ngrams, char_ngrams, min_df, max_df, max_features, weighting, normalize, lowercase, hash_bits)
+    fconfig = featurizer
     options = TrainOptions(loss=loss, optimizer=optimizer, batch_size=batch_size, l2=l2, seed=seed, lazy=not dense,
                            dtype="float32" if float32 else "float64")
     options.validate()
