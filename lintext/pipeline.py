@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import os
 import time
-from dataclasses import asdict, fields
+from dataclasses import asdict, dataclass, fields
 from typing import Callable
 
 import numpy as np
+import scipy.sparse as sp
 from sklearn.metrics import accuracy_score, confusion_matrix, f1_score, precision_recall_fscore_support
 
 from .errors import ConfigError
@@ -23,6 +24,61 @@ from .report_extras import training_extras
 from .train import TrainOptions, fit
 
 Progress = Callable[[dict], None]
+
+
+@dataclass
+class PreparedData:
+    """Read, split and featurized data, shared by :func:`train`, the probe and the sweep."""
+
+    featurizer: Featurizer
+    labels: list[str]
+    X: sp.csr_matrix
+    y: np.ndarray
+    X_dev: sp.csr_matrix | None
+    y_dev: np.ndarray | None
+    train_set: Corpus
+    dev_set: Corpus | None
+    description: dict
+
+
+def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
+                 seed: int = 0, fmt: str | None = None, text_column: str = "text", label_column: str = "label",
+                 n_jobs: int = 1, progress: Progress | None = None) -> PreparedData:
+    """Read ``data``, hold out a dev set and featurize once.
+
+    The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
+    seeded by ``seed`` (none when ``dev_fraction`` is 0). ``description`` is the ``data``
+    part of a model's ``info``.
+    """
+    report = progress or (lambda event: None)
+    fconfig = _as(FeaturizerConfig, featurizer).validate()
+    reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
+    report({"stage": "reading", "path": str(data)})
+    corpus = data if isinstance(data, Corpus) else read_corpus(data, **reader)
+    if dev is not None:
+        train_set = corpus
+        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, min_labels=1, **reader)
+    elif dev_fraction and dev_fraction > 0:
+        train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
+    else:
+        train_set, dev_set = corpus, None
+    labels = train_set.label_names
+    report({"stage": "featurizing", "documents": len(train_set)})
+    started = time.perf_counter()
+    feat = Featurizer(fconfig, n_jobs=n_jobs)
+    X = feat.fit_transform(train_set.texts).tocsr()
+    X_dev = feat.transform(dev_set.texts).tocsr() if dev_set is not None else None
+    description = {
+        "train": str(getattr(data, "path", data)),
+        "train_documents": len(train_set),
+        "dev": None if dev_set is None else (str(getattr(dev, "path", dev)) if dev is not None else f"{dev_fraction:g} of train"),
+        "dev_documents": 0 if dev_set is None else len(dev_set),
+        "features": int(X.shape[1]),
+        "nonzeros": int(X.nnz),
+        "featurize_seconds": round(time.perf_counter() - started, 3),
+    }
+    y_dev = dev_set.label_indices(labels) if dev_set is not None else None
+    return PreparedData(feat, labels, X, train_set.label_indices(labels), X_dev, y_dev, train_set, dev_set, description)
 
 
 def train(
@@ -56,53 +112,27 @@ def train(
     Model, with ``info`` holding options, history, best epoch and metrics.
     """
     report = progress or (lambda event: None)
-    fconfig = _as(FeaturizerConfig, featurizer).validate()
     topts = _as(TrainOptions, options)
     topts.validate()
-    reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
-
-    report({"stage": "reading", "path": str(data)})
-    corpus = _corpus(data, reader)
-    if dev is not None:
-        train_set, dev_set = corpus, _corpus(dev, reader, min_labels=1)
-    elif dev_fraction and dev_fraction > 0:
-        train_set, dev_set = split_dev(corpus, dev_fraction, seed=topts.seed)
-    else:
-        train_set, dev_set = corpus, None
-    labels = train_set.label_names
-    y = train_set.label_indices(labels)
-    y_dev = dev_set.label_indices(labels) if dev_set is not None else None
-
-    report({"stage": "featurizing", "documents": len(train_set)})
-    started = time.perf_counter()
-    feat = Featurizer(fconfig, n_jobs=n_jobs)
-    X = feat.fit_transform(train_set.texts)
-    X_dev = feat.transform(dev_set.texts) if dev_set is not None else None
-    featurize_seconds = time.perf_counter() - started
-
-    result = fit(X, y, len(labels), X_dev, y_dev, topts, progress=lambda row: report({"stage": "epoch", **row}))
+    prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, fmt, text_column, label_column, n_jobs, report)
+    result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
+                 progress=lambda row: report({"stage": "epoch", **row}))
     info = {
         "training": _options_json(topts),
         "best_epoch": int(result.best_epoch),
         "stopped_early": bool(result.stopped_early),
         "history": result.history,
-        "data": {
-            "train": str(getattr(data, "path", data)),
-            "train_documents": len(train_set),
-            "dev": None if dev_set is None else (str(getattr(dev, "path", dev)) if dev is not None else f"{dev_fraction:g} of train"),
-            "dev_documents": 0 if dev_set is None else len(dev_set),
-            "features": int(X.shape[1]),
-            "nonzeros": int(X.nnz),
-            "featurize_seconds": round(featurize_seconds, 3),
-        },
+        "data": prep.description,
         "metrics": {},
     }
-    model = Model(feat, result.coef, result.intercept, labels, topts.loss, info, result.feature_stats)
-    model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, X, train_labels=train_set.labels)
-    if dev_set is not None:
-        model.info["metrics"]["dev"] = evaluate(model, dev_set)
+    train_set = prep.train_set
+    model = Model(prep.featurizer, result.coef, result.intercept, prep.labels, topts.loss, info, result.feature_stats)
+    model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
+    if prep.dev_set is not None:
+        model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
+        reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
         test_set = _corpus(test, reader, min_labels=1)
         model.info["data"]["test"] = str(getattr(test, "path", test))
         model.info["metrics"]["test"] = evaluate(model, test_set)

@@ -43,9 +43,9 @@ Caveat: on sparse text with ``batch_size=1``, 300 steps see only 300 documents, 
 loss before each update is close to a held-out loss; the curve is noisy and the
 suggestion is a starting point for a sweep, not a replacement for one.
 
-This module also holds what :mod:`lintext.sweep` shares with the probe: :func:`prepare_data`
-(read, hold out dev rows and featurize once, as :func:`lintext.pipeline.train` does) and the
-helpers of the self-contained pages (:func:`figure_svg`, :func:`html_page`).
+The probe reads and featurizes through :func:`lintext.pipeline.prepare_data`, as training
+does. This module also holds the helpers of the self-contained pages that :mod:`lintext.sweep`
+shares (:func:`figure_svg`, :func:`html_page`).
 """
 
 from __future__ import annotations
@@ -56,20 +56,17 @@ import io
 import json
 import math
 import os
-import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
-import scipy.sparse as sp
 
 from . import kernels, losses, optim
 from .errors import ConfigError
-from .features import Featurizer, FeaturizerConfig
-from .io import Corpus, read_corpus, split_dev
+from .features import FeaturizerConfig
 from .model import atomic_directory, atomic_file
-from .pipeline import _as
+from .pipeline import _as, prepare_data
 from .train import OPTIMIZERS, TrainOptions, _check_xy
 
 Progress = Callable[[dict], None]
@@ -77,60 +74,6 @@ STEP_OPTIMIZERS = tuple(name for name in OPTIMIZERS if name != "lbfgs")  # the r
 
 
 # --------------------------------------------------------------------------- data, shared with the sweep
-
-
-@dataclass
-class PreparedData:
-    """Read, split and featurized data, shared by :func:`probe` and :func:`lintext.sweep.sweep`."""
-
-    featurizer: Featurizer
-    labels: list[str]
-    X: sp.csr_matrix
-    y: np.ndarray
-    X_dev: sp.csr_matrix | None
-    y_dev: np.ndarray | None
-    dev_set: Corpus | None
-    description: dict
-
-
-def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
-                 seed: int = 0, fmt: str | None = None, text_column: str = "text", label_column: str = "label",
-                 progress: Progress | None = None) -> PreparedData:
-    """Read ``data``, hold out a dev set as :func:`lintext.pipeline.train` does, and featurize once.
-
-    The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
-    seeded by ``seed`` (none when ``dev_fraction`` is 0). ``description`` is the ``data``
-    part of a model's ``info``.
-    """
-    report = progress or (lambda event: None)
-    fconfig = _as(FeaturizerConfig, featurizer).validate()
-    reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
-    report({"stage": "reading", "path": str(data)})
-    corpus = data if isinstance(data, Corpus) else read_corpus(data, **reader)
-    if dev is not None:
-        train_set = corpus
-        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, min_labels=1, **reader)
-    elif dev_fraction and dev_fraction > 0:
-        train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
-    else:
-        train_set, dev_set = corpus, None
-    labels = train_set.label_names
-    report({"stage": "featurizing", "documents": len(train_set)})
-    started = time.perf_counter()
-    feat = Featurizer(fconfig)
-    X = feat.fit_transform(train_set.texts).tocsr()
-    X_dev = feat.transform(dev_set.texts).tocsr() if dev_set is not None else None
-    description = {
-        "train": str(getattr(data, "path", data)),
-        "train_documents": len(train_set),
-        "dev": None if dev_set is None else (str(getattr(dev, "path", dev)) if dev is not None else f"{dev_fraction:g} of train"),
-        "dev_documents": 0 if dev_set is None else len(dev_set),
-        "features": int(X.shape[1]),
-        "nonzeros": int(X.nnz),
-        "featurize_seconds": round(time.perf_counter() - started, 3),
-    }
-    y_dev = dev_set.label_indices(labels) if dev_set is not None else None
-    return PreparedData(feat, labels, X, train_set.label_indices(labels), X_dev, y_dev, dev_set, description)
 
 
 # --------------------------------------------------------------------------- probe
@@ -287,7 +230,7 @@ def probe(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     ``probe_options`` go to :func:`probe_learning_rate`.
     """
     options = _as(TrainOptions, options)
-    prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, fmt, text_column, label_column, progress)
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, fmt, text_column, label_column, progress=progress)
     result = probe_learning_rate(prepared.X, prepared.y, len(prepared.labels), options, progress=progress, **probe_options)
     result.settings["data"] = prepared.description
     return result

@@ -48,7 +48,8 @@ from .errors import ConfigError, DivergenceError, LinTextError
 from .features import FeaturizerConfig
 from .model import Model, _json_default, atomic_directory, atomic_file
 from .pipeline import _as, _options_json, evaluate
-from .probe import STEP_OPTIMIZERS, PreparedData, figure_svg, format_cell, html_page, prepare_data
+from .pipeline import PreparedData, prepare_data
+from .probe import STEP_OPTIMIZERS, figure_svg, format_cell, html_page
 from .train import TrainOptions, fit
 
 Progress = Callable[[dict], None]
@@ -240,7 +241,7 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     jobs = min(len(grid), n_jobs or cpu_count())
     if dev is None and not dev_fraction:
         raise ConfigError("--dev-fraction", dev_fraction, "a sweep ranks its runs on dev data; give --dev FILE or a fraction above 0")
-    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, fmt, text_column, label_column, report)
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, fmt, text_column, label_column, progress=report)
     n_labels = len(prepared.labels)
     started = time.perf_counter()
     found: dict[int, tuple[dict, list]] = {}
