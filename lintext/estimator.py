@@ -3,10 +3,12 @@
 It takes a feature matrix (sparse or dense), not text, so that it composes with
 scikit-learn's vectorizers in a ``Pipeline``::
 
-    make_pipeline(TfidfVectorizer(), LinTextClassifier(optimizer="adagrad"))
+    make_pipeline(TfidfVectorizer(), LinTextClassifier())
 
-Early stopping holds out a stratified ``validation_fraction`` of the training
-rows when ``early_stopping`` is on; otherwise every epoch runs.
+Early stopping (on by default, as on the command line) holds out a stratified
+``validation_fraction`` of the training rows; with ``early_stopping=False``, or when the data
+are too few for a stratified split (a class with one row, or fewer held-out rows than classes),
+every epoch runs on all rows.
 """
 
 from __future__ import annotations
@@ -19,27 +21,35 @@ from sklearn.utils.metaestimators import available_if
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from .engine.options import TrainOptions
+from .engine.trainer import fit
 from .model import softmax
-from .train import TrainOptions, fit
+
+DEFAULTS = TrainOptions()  # one source of defaults: the command line's
 
 
 class LinTextClassifier(ClassifierMixin, BaseEstimator):
     """Sparse linear classifier trained by lintext's engine.
 
-    Parameters mirror :class:`lintext.train.TrainOptions`; see there for
-    their meaning. ``learning_rate=None`` takes the optimizer's default.
+    Parameters mirror :class:`lintext.engine.options.TrainOptions`, with the same defaults as
+    ``lintext train`` (plain SGD, 50 epochs, early stopping with patience 5 on a stratified
+    ``validation_fraction`` of the rows); see there for their meaning. ``learning_rate=None``
+    takes the optimizer's default.
 
     Attributes
     ----------
     classes_ : labels in column order.
-    coef_ : array (n_classes, n_features), as in scikit-learn's linear models.
+    coef_ : array (n_classes, n_features), labels by features as in scikit-learn's linear
+        models: the transpose of ``coef`` in a model directory's ``weights.npz`` (features by
+        labels, one row per feature, the layout the engine trains).
     intercept_ : array (n_classes,).
     history_ : per-epoch records.
     n_features_in_ : number of input columns.
     """
 
-    def __init__(self, loss="softmax", optimizer="adagrad", learning_rate=None, schedule="constant", epochs=20,
-                 batch_size=8, l2=0.0, early_stopping=False, validation_fraction=0.1, patience=5, seed=0):
+    def __init__(self, loss=DEFAULTS.loss, optimizer=DEFAULTS.optimizer, learning_rate=DEFAULTS.learning_rate,
+                 schedule=DEFAULTS.schedule, epochs=DEFAULTS.epochs, batch_size=DEFAULTS.batch_size, l2=DEFAULTS.l2,
+                 early_stopping=True, validation_fraction=0.1, patience=DEFAULTS.patience, seed=DEFAULTS.seed):
         self.loss = loss
         self.optimizer = optimizer
         self.learning_rate = learning_rate
@@ -65,7 +75,8 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
                                patience=self.patience if self.early_stopping else 0, seed=self.seed)
         options.validate()
         X_dev = y_dev = None
-        if self.early_stopping:
+        counts = np.bincount(codes)
+        if self.early_stopping and counts.min() >= 2 and round(self.validation_fraction * len(codes)) >= len(counts):
             rows = np.arange(X.shape[0])
             train_rows, dev_rows = train_test_split(rows, test_size=self.validation_fraction, stratify=codes,
                                                     random_state=self.seed)

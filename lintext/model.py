@@ -19,8 +19,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
-import tempfile
 import zipfile
 from pathlib import Path
 from typing import Callable
@@ -29,7 +27,9 @@ import numpy as np
 
 from . import __version__
 from .errors import LinTextError, ModelFileError
-from .features import Featurizer
+from .engine.options import upgrade_training_json
+from .files import atomic_directory, json_default
+from .text.featurizer import Featurizer
 
 FORMAT_VERSION = 1
 STAT_NAMES = ("update_count", "abs_update_sum", "effective_step")
@@ -61,20 +61,21 @@ class Model:
 
     # ------------------------------------------------------------ prediction
 
-    def decision_function(self, texts) -> np.ndarray:
-        """Scores ``X @ coef + intercept``, one row per text."""
+    def scores(self, texts) -> np.ndarray:
+        """Scores ``X @ coef + intercept``, one row per text, one column per label."""
         X = self.featurizer.transform(texts)
         return np.asarray(X @ self.coef) + self.intercept
 
-    def predict(self, texts) -> list[str]:
-        scores = self.decision_function(texts)
+    def classify(self, texts) -> list[str]:
+        """The label of each text (the one with the highest score)."""
+        scores = self.scores(texts)
         return [self.labels[j] for j in scores.argmax(axis=1)]
 
-    def predict_proba(self, texts) -> np.ndarray:
-        """Softmax probabilities; only a softmax-loss model has them."""
+    def probabilities(self, texts) -> np.ndarray:
+        """Softmax probabilities, one row per text; only a softmax-loss model has them."""
         if self.loss != "softmax":
-            raise LinTextError(f"a {self.loss}-loss model gives scores, not probabilities; use decision_function")
-        return softmax(self.decision_function(texts))
+            raise LinTextError(f"a {self.loss}-loss model gives scores, not probabilities; use scores()")
+        return softmax(self.scores(texts))
 
     # ------------------------------------------------------------ persistence
 
@@ -98,7 +99,7 @@ class Model:
 
     def _write(self, folder: Path) -> None:
         with open(folder / "model.json", "w", encoding="utf-8") as fh:
-            json.dump(self.to_json(), fh, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default)
+            json.dump(self.to_json(), fh, indent=2, ensure_ascii=False, allow_nan=False, default=json_default)
             fh.write("\n")
         np.savez(folder / "weights.npz", coef=self.coef, intercept=self.intercept)
         self.featurizer.save_vocabulary(folder / "vocabulary.tsv")
@@ -138,6 +139,8 @@ class Model:
         if (folder / "feature_stats.npz").exists():
             stats = _read_npz(folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES}, finite=False, kinds="fi")
         info = {k: v for k, v in meta.items() if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features"}}
+        if isinstance(info.get("training"), dict):
+            info["training"] = upgrade_training_json(info["training"])
         return cls(featurizer, arrays["coef"], arrays["intercept"], labels, loss, info, stats)
 
 
@@ -148,77 +151,12 @@ def softmax(scores: np.ndarray) -> np.ndarray:
     return z
 
 
-def load_model(path: str | os.PathLike) -> Model:
-    """Load a model directory written by :meth:`Model.save`."""
+def open_model(path: str | os.PathLike) -> Model:
+    """Read a model directory written by :meth:`Model.save` (validated; no code is executed)."""
     return Model.load(path)
 
 
-# ---------------------------------------------------------------- helpers
-
-
-def atomic_directory(target: Path, fill: Callable[[Path], object]) -> Path:
-    """Fill a temporary directory beside ``target``, then rename it into place.
-
-    An existing ``target`` is replaced only once the new directory is complete;
-    on any failure (or Ctrl-C) the temporary directory is removed and
-    ``target`` is left as it was.
-    """
-    target = Path(target).resolve()
-    target.parent.mkdir(parents=True, exist_ok=True)
-    if target.exists() and not target.is_dir():
-        raise ModelFileError(target, "exists and is not a directory")
-    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
-    os.chmod(tmp, 0o777 & ~_umask())  # mkdtemp makes 0700; give the usual permissions
-    old = None
-    try:
-        fill(tmp)
-        if target.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
-            os.rename(target, old / "previous")
-        os.rename(tmp, target)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        if old is not None and (old / "previous").exists() and not target.exists():
-            os.rename(old / "previous", target)
-        raise
-    finally:
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
-    return target
-
-
-def atomic_file(target: Path, write: Callable[[object], object], newline: str = "") -> Path:
-    """Write a text file through a temporary file beside ``target``, then rename it into place."""
-    target = Path(target).resolve()
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.tmp-", dir=target.parent)
-    os.chmod(tmp, 0o666 & ~_umask())
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline=newline) as fh:
-            write(fh)
-        os.replace(tmp, target)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return target
-
-
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-def _json_default(value):
-    if isinstance(value, np.integer):
-        return int(value)
-    if isinstance(value, np.floating):
-        return float(value)
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, tuple):
-        return list(value)
-    raise TypeError(f"cannot write {type(value).__name__} to JSON")
+# ---------------------------------------------------------------- reading
 
 
 def _read_json(path: Path) -> dict:

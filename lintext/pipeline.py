@@ -1,29 +1,55 @@
 """The main job end to end: read, split, featurize, train, evaluate.
 
-``train`` is the Python entry point behind ``lintext train``; ``evaluate``
-behind ``lintext evaluate``. Neither prints: progress goes to the callable
-given, as dictionaries.
+:func:`build_model` is the Python entry point behind ``lintext train``; :func:`evaluate`
+behind ``lintext evaluate``; :func:`prediction_rows` behind ``lintext predict``. None
+prints: progress goes to the callable given, as dictionaries (:data:`Progress`).
 """
 
 from __future__ import annotations
 
 import os
 import time
-from dataclasses import asdict, dataclass, fields
+from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
 import scipy.sparse as sp
 from sklearn.metrics import accuracy_score, confusion_matrix, f1_score, precision_recall_fscore_support
 
+from .engine.options import TrainOptions
+from .engine.trainer import fit
 from .errors import ConfigError
-from .features import Featurizer, FeaturizerConfig
-from .io import Corpus, iter_chunks, read_corpus, split_dev
+from .evidence import training_extras
 from .model import Model, softmax
-from .report_extras import training_extras
-from .train import TrainOptions, fit
+from .text.featurizer import Featurizer, FeaturizerConfig
+from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus, split_dev
 
+# Progress callback: receives ``{"stage": ...}`` dictionaries (reading, featurizing, epoch,
+# evaluating, run, probe); the command line turns them into a display.
 Progress = Callable[[dict], None]
+
+
+def featurizer_config(value) -> FeaturizerConfig:
+    """``None`` (the defaults), a FeaturizerConfig, or a dict of its fields; validated."""
+    if value is None:
+        return FeaturizerConfig()
+    if isinstance(value, FeaturizerConfig):
+        return value.validate()
+    if isinstance(value, dict):
+        unknown = sorted(set(value) - set(FeaturizerConfig.__dataclass_fields__))
+        if unknown:
+            raise ConfigError(unknown[0], value[unknown[0]], "not a featurizer option")
+        return FeaturizerConfig(**value).validate()
+    raise TypeError(f"expected FeaturizerConfig or dict, got {type(value).__name__}")
+
+
+def check_dev_fraction(dev_fraction, dev=None) -> float:
+    """The share of the data held out for dev: 0 when a dev set is given, else in [0, 1)."""
+    if dev is not None:
+        return 0.0
+    if isinstance(dev_fraction, bool) or not isinstance(dev_fraction, (int, float)) or not 0 <= dev_fraction < 1:
+        raise ConfigError("--dev-fraction", dev_fraction, "must be at least 0 and below 1")
+    return float(dev_fraction)
 
 
 @dataclass
@@ -42,8 +68,8 @@ class PreparedData:
 
 
 def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
-                 seed: int = 0, fmt: str | None = None, text_column: str = "text", label_column: str = "label",
-                 n_jobs: int = 1, progress: Progress | None = None) -> PreparedData:
+                 seed: int = 0, reader: ReaderOptions | None = None, n_jobs: int = 1,
+                 progress: Progress | None = None) -> PreparedData:
     """Read ``data``, hold out a dev set and featurize once.
 
     The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
@@ -51,13 +77,13 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
     part of a model's ``info``.
     """
     report = progress or (lambda event: None)
-    fconfig = _as(FeaturizerConfig, featurizer).validate()
-    reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
+    fconfig = featurizer_config(featurizer)
+    dev_fraction = check_dev_fraction(dev_fraction, dev)
     report({"stage": "reading", "path": str(data)})
-    corpus = data if isinstance(data, Corpus) else read_corpus(data, **reader)
+    corpus = data if isinstance(data, Corpus) else read_corpus(data, reader)
     if dev is not None:
         train_set = corpus
-        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, min_labels=1, **reader)
+        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, reader, min_labels=1)
     elif dev_fraction and dev_fraction > 0:
         train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
     else:
@@ -81,16 +107,14 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
     return PreparedData(feat, labels, X, train_set.label_indices(labels), X_dev, y_dev, train_set, dev_set, description)
 
 
-def train(
+def build_model(
     data: str | os.PathLike | Corpus,
     dev: str | os.PathLike | Corpus | None = None,
     test: str | os.PathLike | Corpus | None = None,
     dev_fraction: float = 0.1,
     featurizer: FeaturizerConfig | dict | None = None,
     options: TrainOptions | dict | None = None,
-    fmt: str | None = None,
-    text_column: str = "text",
-    label_column: str = "label",
+    reader: ReaderOptions | None = None,
     n_jobs: int = 1,
     progress: Progress | None = None,
 ) -> Model:
@@ -98,12 +122,13 @@ def train(
 
     Parameters
     ----------
-    data : training file, folder or :class:`~lintext.io.Corpus`.
+    data : training file, folder or :class:`~lintext.text.readers.Corpus`.
     dev : a dev set; when ``None``, a stratified ``dev_fraction`` of ``data``
         (seeded by ``options.seed``) is held out; ``dev_fraction=0`` trains on
         everything with no early stopping.
     test : optional test set, evaluated once at the end (never used in training).
     featurizer, options : configurations (objects or dictionaries of their fields).
+    reader : how to read the files (format, text and label columns).
     progress : called with ``{"stage": ...}`` dictionaries (reading,
         featurizing, each epoch, evaluating).
 
@@ -112,13 +137,12 @@ def train(
     Model, with ``info`` holding options, history, best epoch and metrics.
     """
     report = progress or (lambda event: None)
-    topts = _as(TrainOptions, options)
-    topts.validate()
-    prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, fmt, text_column, label_column, n_jobs, report)
+    topts = TrainOptions.from_mapping(options).validate()
+    prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report)
     result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
                  progress=lambda row: report({"stage": "epoch", **row}))
     info = {
-        "training": _options_json(topts),
+        "training": topts.to_json(),
         "best_epoch": int(result.best_epoch),
         "stopped_early": bool(result.stopped_early),
         "history": result.history,
@@ -132,14 +156,14 @@ def train(
         model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
-        reader = dict(fmt=fmt, text_column=text_column, label_column=label_column)
         test_set = _corpus(test, reader, min_labels=1)
         model.info["data"]["test"] = str(getattr(test, "path", test))
         model.info["metrics"]["test"] = evaluate(model, test_set)
     return model
 
 
-def evaluate(model: Model, data: str | os.PathLike | Corpus, summary_only: bool = False, **reader) -> dict:
+def evaluate(model: Model, data: str | os.PathLike | Corpus, reader: ReaderOptions | None = None,
+             summary_only: bool = False) -> dict:
     """Accuracy, macro- and weighted-F1, per-label precision/recall/F1/support and the confusion matrix.
 
     Labels in ``data`` that the model does not know raise InputError naming the record.
@@ -147,7 +171,7 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus, summary_only: bool 
     """
     corpus = _corpus(data, reader, min_labels=1)
     y_true = corpus.label_indices(model.labels)
-    y_pred = model.decision_function(corpus.texts).argmax(axis=1)
+    y_pred = model.scores(corpus.texts).argmax(axis=1)
     every = np.arange(len(model.labels))
     out = {
         "documents": len(corpus),
@@ -167,23 +191,24 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus, summary_only: bool 
     return out
 
 
-def predict_rows(model: Model, data, top: int = 1, chunk_size: int = 20000, **reader):
+def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None):
     """Yield a CSV header and then one row per input record, streaming in chunks.
 
     Columns: ``row`` (the record's number in the input, from 1), ``label``, and
-    ``probability`` (softmax) or ``score`` (hinge); with ``top`` > 1 also
-    ``label_2``, ``probability_2`` ... up to ``top``.
+    ``probability`` (softmax) or ``score`` (hinge); with ``top_labels`` > 1 also
+    ``label_2``, ``probability_2`` ... up to ``top_labels``.
     """
+    top = top_labels
     if not 1 <= top <= len(model.labels):
-        raise ConfigError("--top", top, f"must be between 1 and the number of labels ({len(model.labels)})")
+        raise ConfigError("--top-labels", top, f"must be between 1 and the number of labels ({len(model.labels)})")
     value = "probability" if model.loss == "softmax" else "score"
     header = ["row", "label", value]
     for k in range(2, top + 1):
         header += [f"label_{k}", f"{value}_{k}"]
     yield header
     row = 0
-    for chunk in iter_chunks(data, chunk_size=chunk_size, **reader):
-        scores = model.decision_function(chunk.texts)
+    for chunk in iter_chunks(data, chunk_size=chunk_size, reader=reader):
+        scores = model.scores(chunk.texts)
         if model.loss == "softmax":
             scores = softmax(scores)
         best = np.argsort(-scores, axis=1, kind="stable")[:, :top]
@@ -195,29 +220,7 @@ def predict_rows(model: Model, data, top: int = 1, chunk_size: int = 20000, **re
             yield out
 
 
-def _corpus(data, reader: dict, min_labels: int = 2) -> Corpus:
+def _corpus(data, reader: ReaderOptions | None, min_labels: int = 2) -> Corpus:
     if isinstance(data, Corpus):
         return data
-    return read_corpus(data, min_labels=min_labels, **reader)
-
-
-def _as(cls, value):
-    if value is None:
-        return cls()
-    if isinstance(value, cls):
-        return value
-    if isinstance(value, dict):
-        known = {f.name for f in fields(cls)}
-        unknown = sorted(set(value) - known)
-        if unknown:
-            raise ConfigError(unknown[0], value[unknown[0]], f"not a {cls.__name__} field")
-        return cls(**value)
-    raise TypeError(f"expected {cls.__name__} or dict, got {type(value).__name__}")
-
-
-def _options_json(options: TrainOptions) -> dict:
-    """The options as JSON, with the learning rate actually used filled in."""
-    out = {k: (list(v) if isinstance(v, tuple) else v) for k, v in asdict(options).items()}
-    rate = options.base_learning_rate()
-    out["learning_rate"] = rate if np.isfinite(rate) else None
-    return out
+    return read_corpus(data, reader, min_labels=min_labels)

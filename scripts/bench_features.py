@@ -49,7 +49,7 @@ import sklearn  # noqa: E402
 from joblib import delayed  # noqa: E402
 from sklearn.feature_extraction.text import CountVectorizer, TfidfVectorizer  # noqa: E402
 
-from lintext.features import PARALLEL_MIN_DOCS, Featurizer, FeaturizerConfig  # noqa: E402
+from lintext.text.featurizer import PARALLEL_MIN_DOCS, Featurizer, FeaturizerConfig  # noqa: E402
 from make_synth import make_corpus  # noqa: E402
 
 FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"

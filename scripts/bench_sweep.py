@@ -39,8 +39,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from lintext.model import atomic_file  # noqa: E402
-from lintext.sweep import DEFAULT_LEARNING_RATES, DEFAULT_OPTIMIZERS, TIMINGS, sweep  # noqa: E402
+from lintext.files import atomic_file  # noqa: E402
+from lintext.tuning.sweep import DEFAULT_LEARNING_RATES, DEFAULT_OPTIMIZERS, TIMINGS, sweep  # noqa: E402
 
 TARGET = 0.6
 
@@ -88,7 +88,7 @@ def main() -> int:
     print(f"warm-up: one-epoch sweeps with 1 and {args.jobs} jobs (numba cache loaded or compiled, "
           "workers started) -- not timed", flush=True)
     for jobs in (1, args.jobs):
-        sweep(args.train, dev=args.dev, n_jobs=jobs, learning_rates=[0.1], options={"epochs": 1})
+        sweep(args.train, dev=args.dev, workers=jobs, learning_rates=[0.1], options={"epochs": 1})
 
     print(f"timing the default sweep ({len(DEFAULT_OPTIMIZERS)} optimizers x {len(DEFAULT_LEARNING_RATES)} "
           f"learning rates), {args.repeat} time(s) each way", flush=True)
@@ -100,7 +100,7 @@ def main() -> int:
     for _ in range(args.repeat):
         for jobs in (args.jobs, 1):
             busy, own, started = machine_busy_seconds(), time.process_time(), time.perf_counter()
-            result = sweep(args.train, dev=args.dev, n_jobs=jobs)
+            result = sweep(args.train, dev=args.dev, workers=jobs)
             wall = time.perf_counter() - started
             times[jobs].append(wall)
             cpu[jobs].append(sum(r["cpu_seconds"] for r in result.rows))

@@ -75,9 +75,11 @@ from sklearn.exceptions import ConvergenceWarning  # noqa: E402
 from sklearn.linear_model import SGDClassifier  # noqa: E402
 
 import numba  # noqa: E402
-from lintext import kernels, losses, optim  # noqa: E402
-from lintext.features import Featurizer, FeaturizerConfig  # noqa: E402
-from lintext.train import TrainOptions, fit  # noqa: E402
+from lintext.engine import kernels, losses  # noqa: E402
+from lintext.engine import optimizers as optim  # noqa: E402
+from lintext.engine.options import TrainOptions  # noqa: E402
+from lintext.engine.trainer import fit  # noqa: E402
+from lintext.text.featurizer import Featurizer, FeaturizerConfig  # noqa: E402
 from make_synth import make_corpus  # noqa: E402
 
 FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
@@ -164,10 +166,9 @@ class Floor:
 def epoch_seconds(X, y, n_labels, floor, optimizer, loss, batch_size, epochs, threads=1):
     """Timed epochs of ``kernels.run_epoch`` as ``train.fit`` runs them, with floor measurements
     around each; returns the record for the table."""
-    code = optim.OPTIMIZER_CODES[optimizer]
-    rule = optim.make_rule(optimizer)
-    hyper = dict(beta1=getattr(rule, "beta1", 0.9), beta2=getattr(rule, "beta2", 0.999),
-                 rho=getattr(rule, "rho", 0.9), epsilon=getattr(rule, "epsilon", 1e-8))
+    spec = optim.OPTIMIZERS[optimizer]
+    code = spec.code
+    hyper = optim.kernel_hyperparameters(spec.make_rule())
     params = np.zeros((X.shape[1] + 1, n_labels))
     state = kernels.KernelState.new(X.shape[1], n_labels, code)
     for array in (params, state.sum_sq_grad, state.first_moment, state.second_moment, state.avg_sq_update):
@@ -178,7 +179,7 @@ def epoch_seconds(X, y, n_labels, floor, optimizer, loss, batch_size, epochs, th
         order = rng.permutation(X.shape[0]).astype(np.int64)
         started = time.perf_counter()
         kernels.run_epoch(X.indptr, X.indices, X.data, y, order, params, state, loss_code=losses.LOSS_CODES[loss],
-                          optimizer_code=code, schedule_code=0, learning_rate=optim.DEFAULT_LEARNING_RATES[optimizer],
+                          optimizer_code=code, schedule_code=0, learning_rate=spec.default_learning_rate,
                           batch_size=batch_size, flush=False, threads=threads, **hyper)
         return time.perf_counter() - started
 
@@ -224,13 +225,14 @@ MEMORY_SCRIPT = r"""
 import json, os, sys, threading, time, tracemalloc
 import numpy as np, scipy.sparse as sp
 sys.path.insert(0, sys.argv[1])
-from lintext.train import TrainOptions, fit
+from lintext.engine.options import TrainOptions
+from lintext.engine.trainer import fit
 path, optimizer, dtype, epochs = sys.argv[2], sys.argv[3], sys.argv[4], int(sys.argv[5])
 with np.load(path) as z:
     X = sp.csr_matrix((z["data"], z["indices"], z["indptr"]), shape=tuple(z["shape"]))
     y = z["y"]
     n_labels = int(z["n_labels"])
-fit(X[:200], y[:200], n_labels, options=TrainOptions(optimizer=optimizer, epochs=1, dtype=dtype))  # load the kernels
+fit(X[:200], y[:200], n_labels, options=TrainOptions(optimizer=optimizer, epochs=1, precision=dtype))  # load the kernels
 def status(key):
     with open("/proc/self/status") as fh:
         for line in fh:
@@ -253,7 +255,7 @@ watcher = threading.Thread(target=sample, daemon=True)
 watcher.start()
 tracemalloc.start()
 started = time.perf_counter()
-result = fit(X, y, n_labels, options=TrainOptions(optimizer=optimizer, epochs=epochs, patience=0, dtype=dtype))
+result = fit(X, y, n_labels, options=TrainOptions(optimizer=optimizer, epochs=epochs, patience=0, precision=dtype))
 seconds = time.perf_counter() - started
 traced = tracemalloc.get_traced_memory()[1]
 tracemalloc.stop()
@@ -270,7 +272,8 @@ os.environ["NUMBA_CACHE_DIR"] = sys.argv[2]
 sys.path.insert(0, sys.argv[1])
 started = time.perf_counter()
 import numpy as np, scipy.sparse as sp
-from lintext.train import TrainOptions, fit
+from lintext.engine.options import TrainOptions
+from lintext.engine.trainer import fit
 imported = time.perf_counter()
 rng = np.random.default_rng(0)
 X = sp.random(400, 300, density=0.05, format="csr", random_state=0)   # int32 indices, float64: as featurized
@@ -293,7 +296,7 @@ def measure_memory(X, y, n_labels, optimizer, dtype, epochs, folder):
     n_rows = X.shape[1] + 1
     matrix = X.data.size * itemsize + X.indices.nbytes + X.indptr.nbytes  # as fit holds it (float32: converted copy)
     weights = n_rows * n_labels * itemsize
-    state = len(kernels._STATE_ARRAYS[optim.OPTIMIZER_CODES[optimizer]]) * weights
+    state = len(optim.OPTIMIZERS[optimizer].state_arrays) * weights
     training_peak = max(0, got["peak_rss"] - got["rss_before"]) + matrix
     return {"optimizer": optimizer, "dtype": dtype, "matrix_bytes": matrix, "weights_bytes": weights,
             "state_bytes": state, "budget_bytes": matrix + weights + state, **got,
@@ -398,7 +401,8 @@ def thread_scaling(X, y, n_labels, epochs, log):
                     started = time.perf_counter()
                     kernels.run_epoch(X.indptr, X.indices, X.data, y, order, params, state, loss_code=0,
                                       optimizer_code=optim.ADAGRAD, schedule_code=0, learning_rate=0.2,
-                                      epsilon=1e-10, batch_size=batch_size, threads=threads)
+                                      batch_size=batch_size, threads=threads,
+                                      **optim.kernel_hyperparameters(optim.make_rule("adagrad")))
                     times.append(time.perf_counter() - started)
                 record[f"seconds_{threads}_thread"] = min(times[1:])
                 weights[threads] = params

@@ -9,7 +9,7 @@ out=${1:-runs/demo}
 lintext stats data/demo/train.csv
 lintext train data/demo/train.csv --dev data/demo/dev.csv --test data/demo/test.csv --out "$out"
 lintext evaluate "$out" data/demo/test.csv
-lintext predict "$out" data/demo/test.csv --top 2 --out "$out/test-predictions.csv"
+lintext predict "$out" data/demo/test.csv --top-labels 2 --out "$out/test-predictions.csv"
 echo
 echo "Results in $root/$out:"
 echo "  report.html      the report: learning curves, feature frequency against update size, top and rare features"

@@ -8,15 +8,15 @@ from sklearn.linear_model import SGDClassifier
 from sklearn.metrics import f1_score
 
 import lintext
-from lintext.io import read_corpus
-from lintext.train import TrainOptions
+from lintext.text.readers import read_corpus
+from lintext.engine.options import TrainOptions
 
 from .conftest import DEMO
 
 
 @pytest.fixture(scope="module")
 def default_model():
-    return lintext.train(DEMO / "train.csv", dev=DEMO / "dev.csv", test=DEMO / "test.csv")
+    return lintext.build_model(DEMO / "train.csv", dev=DEMO / "dev.csv", test=DEMO / "test.csv")
 
 
 def test_defaults_against_sgdclassifier(default_model):
@@ -30,10 +30,10 @@ def test_defaults_against_sgdclassifier(default_model):
     X, X_test = featurizer.transform(train.texts), featurizer.transform(test.texts)
     theirs = [f1_score(test.labels, SGDClassifier(random_state=s).fit(X, train.labels).predict(X_test), average="macro")
               for s in range(3)]
-    ours = [f1_score(test.labels, default_model.predict(test.texts), average="macro")]
+    ours = [f1_score(test.labels, default_model.classify(test.texts), average="macro")]
     for seed in (1, 2):
-        model = lintext.train(DEMO / "train.csv", dev=DEMO / "dev.csv", options={"seed": seed})
-        ours.append(f1_score(test.labels, model.predict(test.texts), average="macro"))
+        model = lintext.build_model(DEMO / "train.csv", dev=DEMO / "dev.csv", options={"seed": seed})
+        ours.append(f1_score(test.labels, model.classify(test.texts), average="macro"))
     print(f"\ntest macro-F1 on data/demo, seeds 0-2: lintext defaults {np.round(ours, 4)} mean {np.mean(ours):.4f}; "
           f"SGDClassifier() {np.round(theirs, 4)} mean {np.mean(theirs):.4f}")
     assert ours[0] == pytest.approx(default_model.info["metrics"]["test"]["macro_f1"], abs=1e-12)

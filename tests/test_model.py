@@ -12,7 +12,8 @@ import pytest
 
 import lintext
 from lintext.errors import ModelFileError
-from lintext.model import FORMAT_VERSION, Model, atomic_directory
+from lintext.files import atomic_directory
+from lintext.model import FORMAT_VERSION, Model
 
 
 @pytest.fixture(scope="module")
@@ -22,7 +23,7 @@ def trained(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("model")
     rows = small_corpus_rows()
     train = write_csv(tmp / "train.csv", rows[:100])
-    model = lintext.train(train, dev_fraction=0.15, options={"epochs": 5, "seed": 1})
+    model = lintext.build_model(train, dev_fraction=0.15, options={"epochs": 5, "seed": 1})
     path = model.save(tmp / "m")
     return model, path, [t for t, _ in rows[100:]]
 
@@ -41,22 +42,22 @@ def test_files_and_fields(trained):
     with np.load(path / "weights.npz", allow_pickle=False) as w:
         assert w["coef"].shape == (model.featurizer.n_features, 3) and w["intercept"].shape == (3,)
     header, *rows = (path / "vocabulary.tsv").read_text().splitlines()
-    assert header == "feature\tindex\tdocument_frequency" and len(rows) == model.featurizer.n_features
+    assert header == "feature\tcolumn\tdocument_frequency" and len(rows) == model.featurizer.n_features
 
 
 def test_fresh_process_gives_identical_predictions(trained):
     model, path, texts = trained
     code = (
         "import json, sys, lintext\n"
-        f"m = lintext.load_model({str(path)!r})\n"
+        f"m = lintext.open_model({str(path)!r})\n"
         "texts = json.loads(sys.stdin.read())\n"
-        "print(json.dumps({'labels': m.predict(texts), 'proba': m.predict_proba(texts).tolist()}))\n"
+        "print(json.dumps({'labels': m.classify(texts), 'proba': m.probabilities(texts).tolist()}))\n"
     )
     done = subprocess.run([sys.executable, "-c", code], input=json.dumps(texts), capture_output=True, text=True, check=True)
     other = json.loads(done.stdout)
-    assert other["labels"] == model.predict(texts)
+    assert other["labels"] == model.classify(texts)
     # float64 -> JSON text -> float64 is exact (repr round-trips)
-    assert np.array_equal(np.array(other["proba"]), model.predict_proba(texts))
+    assert np.array_equal(np.array(other["proba"]), model.probabilities(texts))
 
 
 def corrupt(path: Path, tmp_path: Path, how: str) -> Path:
@@ -128,3 +129,22 @@ def test_atomic_directory_keeps_old_on_failure(tmp_path):
     atomic_directory(target, lambda d: (d / "b.txt").write_text("new"))
     assert tree_bytes(target) == {"b.txt": b"new"}
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+
+
+BEFORE = Path(__file__).resolve().parent / "data" / "before-layout"
+
+
+@pytest.mark.parametrize("kind", ["vocabulary", "hashing"])
+def test_models_written_before_the_layout_change_still_load(kind):
+    # Oracle: labels and probabilities that lintext 0.1.0 itself gave (tests/data/before-layout).
+    expected = json.loads((BEFORE / "predictions.json").read_text())
+    model = lintext.open_model(BEFORE / kind)
+    assert model.classify(expected["texts"]) == expected["expected"][kind]["labels"]
+    np.testing.assert_allclose(model.probabilities(expected["texts"]), expected["expected"][kind]["probabilities"],
+                               rtol=0, atol=1e-12)
+    training = model.info["training"]  # read with today's spellings
+    if kind == "vocabulary":
+        assert training["schedule"] == "inverse-sqrt" and training["stop_metric"] == "macro-f1"
+        assert training["precision"] == "float32" and training["updates"] == "lazy" and "lazy" not in training
+    else:
+        assert model.featurizer.config.hash_space == 256 and training["updates"] == "dense"

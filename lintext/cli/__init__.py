@@ -1,0 +1,16 @@
+"""The command line: a typer app with one thin function per command over the library.
+
+:mod:`~lintext.cli.app` holds the app, the error handling and the consoles;
+:mod:`~lintext.cli.options` the options shared by several commands (declared once, each
+turned into the library's option object); :mod:`~lintext.cli.display` the progress display
+and tables. Commands, one module per family: :mod:`~lintext.cli.commands_data` (``stats``),
+:mod:`~lintext.cli.commands_model` (``train``, ``predict``, ``evaluate``),
+:mod:`~lintext.cli.commands_explain` (``report``, ``compare``, ``inspect``),
+:mod:`~lintext.cli.commands_tuning` (``sweep``, ``probe``). Command modules import the
+library inside the command, so ``--help`` loads none of it. Only this package prints or exits.
+"""
+
+from . import commands_data, commands_explain, commands_model, commands_tuning  # noqa: F401  (register commands)
+from .app import app
+
+__all__ = ["app"]

@@ -1,0 +1,114 @@
+"""``lintext report``, ``compare`` and ``inspect``: what a trained model learnt."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+from rich.table import Table
+from rich.text import Text
+
+from ..errors import ConfigError
+from .app import command, out, status
+from .options import ModelPath, QuietOpt
+
+TopOpt = Annotated[int, typer.Option("--top", help="Features shown per label.")]
+RareRowsOpt = Annotated[int, typer.Option("--rare-rows", help="Rows of the table of rare features with large weights.")]
+
+
+@command
+def report(
+    model_dir: ModelPath,
+    top: TopOpt = 10,
+    rare_rows: RareRowsOpt = 15,
+    quiet: QuietOpt = False,
+):
+    """Write features.csv and report.html (self-contained, printable) into a model directory.
+
+    Example: lintext report models/demo
+    """
+    from ..model import open_model
+    from ..report.writer import write_report
+
+    model = open_model(model_dir)
+    with status("Writing the report", quiet):
+        written = write_report(model, model_dir, top=top, rare_rows=rare_rows)
+    if not quiet:
+        out.print(f"report written to {written['report']}", markup=False)
+        out.print(f"feature table written to {written['features']}", markup=False)
+
+
+@command
+def compare(
+    model_dirs: Annotated[list[Path], typer.Argument(metavar="MODEL_DIR", help="Model directories to show side by side.")],
+    out_file: Annotated[Path, typer.Option("--out", metavar="FILE", help="HTML file to write (replaced atomically).")],
+    name: Annotated[Optional[list[str]], typer.Option("--name", help="Display name of each model, in order (repeat the option).")] = None,
+    quiet: QuietOpt = False,
+):
+    """Write one page comparing models: update magnitude per frequency bin and learning curves on shared axes.
+
+    Example: lintext compare models/sgd models/adagrad models/adam --out compare.html
+    """
+    from ..report.writer import write_comparison
+
+    if name and len(name) != len(model_dirs):
+        raise ConfigError("--name", ", ".join(name), f"give one name per model directory ({len(model_dirs)})")
+    with status(f"Comparing {len(model_dirs)} models", quiet):
+        where = write_comparison(model_dirs, out_file, names=name or None)
+    if not quiet:
+        out.print(f"comparison written to {where}", markup=False)
+
+
+@command
+def inspect(
+    model_dir: ModelPath,
+    label: Annotated[Optional[str], typer.Option("--label", help="Only this label.")] = None,
+    rare: Annotated[bool, typer.Option("--rare", help="Show rare features (in at most 2 training documents) with large weights.")] = False,
+    top: TopOpt = 10,
+    rare_rows: RareRowsOpt = 10,
+):
+    """Print a model's strongest features per label (or, with --rare, its likely memorised ones) and its frequency bins.
+
+    Example: lintext inspect models/demo --label billing --top 15
+    """
+    from ..model import open_model
+    from ..report.layout import fmt, pct
+    from ..report.stats import RARE_DF, check_label, feature_table, frequency_bins, rare_heavy, top_features
+
+    model = open_model(model_dir)
+    check_label(model, label)
+    if top < 1:
+        raise ConfigError("--top", top, "must be at least 1")
+    if rare_rows < 1:
+        raise ConfigError("--rare-rows", rare_rows, "must be at least 1")
+    table = feature_table(model)
+    if rare:
+        rows = rare_heavy(model, top=rare_rows, label=label, table=table)
+        title = f"rare features (in at most {RARE_DF} training documents) with the largest weight norms"
+        grid = Table(title=title + (f", strongest toward {label}" if label else ""), show_lines=True)
+        for col in ("feature", "document frequency", "weight norm (rank)", "strongest label", "training documents"):
+            grid.add_column(col, justify="right" if col in ("document frequency", "weight norm (rank)") else "left")
+        for r in rows:
+            docs = "\n".join(f"{d.get('source', '')}" + (f" ({d['label']})" if d.get("label") else "") + f": {d.get('snippet', '')}"
+                             for d in r["documents"]) or "–"
+            grid.add_row(Text(r["feature"]), str(r["document_frequency"]), f"{fmt(r['weight_norm'], 3)} ({r['norm_rank']})",
+                         Text(f"{r['max_weight_label']} ({fmt(r['max_weight'], 3)})"), Text(docs))
+        out.print(grid)
+        if rows and not any(r["documents"] for r in rows):
+            out.print("training documents not recorded for this model", markup=False)
+    else:
+        for name_, rows in top_features(model, top=top, label=label, table=table).items():
+            grid = Table(title=Text(f"strongest features toward {name_}"))
+            for col in ("feature", "weight", "document frequency"):
+                grid.add_column(col, justify="left" if col == "feature" else "right")
+            for r in rows:
+                grid.add_row(Text(r["feature"]), fmt(r["weight"], 3), f"{r['document_frequency']:,}")
+            out.print(grid)
+    grid = Table(title="features per document-frequency bin")
+    for col in ("document frequency", "features", "share", "share of |Δw|", "median weight norm", "median sum |Δw|",
+                "median effective step"):
+        grid.add_column(col, justify="right")
+    for b in frequency_bins(table):
+        grid.add_row(b["label"], f"{b['features']:,}", pct(b["feature_share"]), pct(b["update_share"]), fmt(b["median_weight_norm"], 3), fmt(b["median_update"], 3), fmt(b["median_effective_step"], 3))
+    out.print(grid)

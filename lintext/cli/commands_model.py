@@ -1,0 +1,145 @@
+"""``lintext train``, ``predict`` and ``evaluate``: the main job."""
+
+from __future__ import annotations
+
+import csv
+import json
+import sys
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+from rich.table import Table
+
+from ..engine.options import TrainOptions
+from ..text.config import FeaturizerConfig
+from ..text.readers import ReaderOptions
+from .app import command, err, out, show_progress, status
+from .display import Display
+from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, ModelPath, QuietOpt, featurizer_options,
+                      reader_options, training_options)
+
+
+@command
+@training_options()
+@featurizer_options
+@reader_options
+def train(
+    data: DataPath,
+    out_dir: Annotated[Path, typer.Option("--out", metavar="MODEL_DIR", help="Model directory to write (replaced atomically).")],
+    dev: DevOpt = None,
+    dev_fraction: DevFractionOpt = 0.1,
+    test: Annotated[Optional[Path], typer.Option("--test", metavar="FILE", help="A test set, evaluated once at the end.")] = None,
+    reader: ReaderOptions = None,
+    featurizer: FeaturizerConfig = None,
+    options: TrainOptions = None,
+    jobs: JobsOpt = 0,
+    no_report: Annotated[bool, typer.Option("--no-report", help="Skip features.csv and report.html.")] = False,
+    quiet: QuietOpt = False,
+):
+    """Train a classifier and write a model directory (with features.csv and report.html).
+
+    Example: lintext train data/demo/train.csv --dev data/demo/dev.csv --test data/demo/test.csv --out models/demo
+    """
+    from ..pipeline import build_model
+
+    display = Display(show_progress(quiet))
+    try:
+        model = build_model(data, dev=dev, test=test, dev_fraction=dev_fraction, featurizer=featurizer,
+                            options=options, reader=reader, n_jobs=jobs, progress=display)
+    finally:
+        display.close()
+    from ..report.writer import write_report  # matplotlib loads only when a report is written
+
+    with status("Writing the model and its report", quiet):
+        where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)))
+    print_training_summary(model)
+    out.print(f"model written to {where}", markup=False, soft_wrap=True)
+
+
+def print_training_summary(model) -> None:
+    metrics = model.info.get("metrics", {})
+    table = Table(title=f"{model.info['training']['optimizer']}, best epoch {model.info['best_epoch']} of {len(model.info['history'])}")
+    for col in ("set", "documents", "accuracy", "macro-F1", "weighted-F1"):
+        table.add_column(col, justify="left" if col == "set" else "right")
+    for name in ("dev", "test"):
+        if name in metrics:
+            m = metrics[name]
+            table.add_row(name, str(m["documents"]), f"{m['accuracy']:.4f}", f"{m['macro_f1']:.4f}", f"{m['weighted_f1']:.4f}")
+    out.print(table)
+
+
+@command
+@reader_options
+def predict(
+    model_dir: ModelPath,
+    data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines or a folder (a label column is optional).")],
+    out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output).")] = None,
+    top_labels: Annotated[int, typer.Option("--top-labels", help="Give the K best labels of each text, best first.")] = 1,
+    reader: ReaderOptions = None,
+    quiet: QuietOpt = False,
+):
+    """Label texts with a trained model; one CSV row per input record.
+
+    Example: lintext predict models/demo data/demo/test.csv --top-labels 3 --out predictions.csv
+    """
+    from ..files import atomic_file
+    from ..model import open_model
+    from ..pipeline import prediction_rows
+
+    model = open_model(model_dir)
+    rows = prediction_rows(model, data, top_labels=top_labels, reader=reader)
+    header = next(rows)  # validates --top-labels before any output
+
+    def write(fh):
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(header)
+        writer.writerows(rows)
+
+    with status(f"Predicting {data}", quiet or out_file is None):
+        if out_file is None:
+            write(sys.stdout)
+        else:
+            atomic_file(out_file, write)
+    if out_file is not None and not quiet:
+        err.print(f"predictions written to {out_file}")
+
+
+@command
+@reader_options
+def evaluate(
+    model_dir: ModelPath,
+    data: Annotated[Path, typer.Argument(metavar="DATA", help="Labelled test data.")],
+    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of tables.")] = False,
+    reader: ReaderOptions = None,
+    quiet: QuietOpt = False,
+):
+    """Score a model on labelled data: accuracy, F1, per-label table, confusion matrix.
+
+    Example: lintext evaluate models/demo data/demo/test.csv
+    """
+    from ..model import open_model
+    from ..pipeline import evaluate as evaluate_model
+
+    model = open_model(model_dir)
+    with status(f"Evaluating on {data}", quiet or as_json):
+        result = evaluate_model(model, data, reader)
+    if as_json:
+        keys = ("accuracy", "macro_f1", "weighted_f1", "per_label", "confusion", "labels", "documents")
+        out.print_json(json.dumps({k: result[k] for k in keys}))
+        return
+    out.print(f"{data}: {result['documents']} documents  accuracy {result['accuracy']:.4f}  "
+              f"macro-F1 {result['macro_f1']:.4f}  weighted-F1 {result['weighted_f1']:.4f}")
+    table = Table(title="per label")
+    for col in ("label", "precision", "recall", "F1", "documents"):
+        table.add_column(col, justify="left" if col == "label" else "right")
+    for name, m in result["per_label"].items():
+        table.add_row(name, f"{m['precision']:.3f}", f"{m['recall']:.3f}", f"{m['f1']:.3f}", str(m["support"]))
+    out.print(table)
+    confusion = Table(title="confusion (rows: true label, columns: predicted)")
+    confusion.add_column("true \\ predicted")
+    for j in range(len(result["labels"])):
+        confusion.add_column(str(j), justify="right")
+    for i, name in enumerate(result["labels"]):
+        confusion.add_row(f"{i} {name}", *[str(v) for v in result["confusion"][i]])
+    out.print(confusion)

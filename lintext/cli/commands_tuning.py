@@ -1,0 +1,115 @@
+"""``lintext sweep`` and ``probe``: searching for a learning rate."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+from rich import box
+from rich.table import Table
+
+from ..engine.options import TrainOptions
+from ..errors import LinTextError
+from ..text.config import FeaturizerConfig
+from ..text.readers import ReaderOptions
+from .app import command, out, show_progress, status
+from .display import Display, print_wide
+from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, QuietOpt, featurizer_options, reader_options,
+                      training_options)
+
+
+@command
+@training_options(exclude=("optimizer", "learning_rate"))
+@featurizer_options
+@reader_options
+def sweep(
+    data: DataPath,
+    out_dir: Annotated[Path, typer.Option("--out", metavar="DIR", help="Folder for sweep.csv, sweep.json, sweep.html and best/ (replaced atomically).")],
+    dev: DevOpt = None,
+    dev_fraction: DevFractionOpt = 0.1,
+    optimizers: Annotated[str, typer.Option("--optimizers", help="Comma-separated optimizers: sgd, adagrad, adadelta, rmsprop, adam.")] = "sgd,adagrad,adam",
+    learning_rates: Annotated[str, typer.Option("--learning-rates", help="Comma-separated learning rates, each tried with every optimizer.")] = "1e-4,1e-3,1e-2,1e-1,1",
+    workers: Annotated[int, typer.Option("--workers", help="Runs at once, each in its own process (0 = one per core); results do not depend on it.")] = 0,
+    reader: ReaderOptions = None,
+    featurizer: FeaturizerConfig = None,
+    options: TrainOptions = None,
+    jobs: JobsOpt = 0,
+    quiet: QuietOpt = False,
+):
+    """Train every optimizer with every learning rate in parallel; keep the best run as a model.
+
+    Example: lintext sweep data/demo/train.csv --dev data/demo/dev.csv --optimizers sgd,adam --learning-rates 0.01,0.1,1 --out sweeps/demo
+    """
+    from ..report.sweep_page import METRIC_NAMES, SHOWN_COLUMNS, TEXT_COLUMNS, cell
+    from ..tuning import sweep as sweeping
+
+    names = sweeping.parse_optimizers(optimizers, "--optimizers")
+    rates = sweeping.parse_learning_rates(learning_rates, "--learning-rates")
+    display = Display(show_progress(quiet))
+    try:
+        result = sweeping.sweep(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
+                                optimizers=names, learning_rates=rates, workers=workers, reader=reader, n_jobs=jobs,
+                                progress=display)
+    finally:
+        display.close()
+    with status(f"Writing {out_dir}", quiet):
+        where = result.save(out_dir)
+    metric = METRIC_NAMES[result.stop_metric]
+    table = Table(title=f"{len(result.rows)} runs ranked by {metric}, {result.settings['workers']} worker(s)",
+                  box=box.SIMPLE_HEAD, pad_edge=False)
+    for col in SHOWN_COLUMNS:
+        table.add_column(col, justify="left" if col in TEXT_COLUMNS else "right", no_wrap=True)
+    for row in result.rows:
+        table.add_row(*[cell(row, col) for col in SHOWN_COLUMNS], style="bold green" if row["run"] == result.best else None)
+    print_wide(table)
+    if result.best is None:
+        raise LinTextError(f"every run diverged; results written to {where}, no model saved; try smaller learning rates")
+    best = result.rows[result.best]
+    out.print(f"best: {best['optimizer']} at learning rate {best['learning_rate']:g} ({metric} {best['stop_value']:.4f}); "
+              f"model written to {where / 'best'}", markup=False, soft_wrap=True)
+    out.print(f"results written to {where}", markup=False, soft_wrap=True)
+
+
+@command
+@training_options(exclude=("learning_rate", "schedule", "decay", "plateau_factor", "epochs", "patience",
+                           "min_improvement", "stop_metric", "threads"))
+@featurizer_options
+@reader_options
+def probe(
+    data: DataPath,
+    out_dir: Annotated[Optional[Path], typer.Option("--out", metavar="DIR", help="Folder for probe.csv, probe.json and probe.html (the plot).")] = None,
+    steps: Annotated[int, typer.Option("--steps", help="Most steps; the learning rate grows geometrically over them.")] = 300,
+    min_lr: Annotated[float, typer.Option("--min-lr", help="Learning rate of the first step.")] = 1e-6,
+    max_lr: Annotated[float, typer.Option("--max-lr", help="Learning rate of the last step (the probe stops earlier on blow-up).")] = 10.0,
+    smoothing: Annotated[float, typer.Option("--smoothing", help="Factor of the moving average of the loss.")] = 0.98,
+    dev: DevOpt = None,
+    dev_fraction: DevFractionOpt = 0.1,
+    reader: ReaderOptions = None,
+    featurizer: FeaturizerConfig = None,
+    options: TrainOptions = None,
+    quiet: QuietOpt = False,
+):
+    """Suggest a learning rate from one short run whose learning rate grows step by step (Smith's range test, 2017).
+
+    Example: lintext probe data/demo/train.csv --optimizer adam --out probes/adam
+    """
+    from ..tuning.probe import probe as run_probe
+
+    display = Display(show_progress(quiet))
+    try:
+        result = run_probe(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
+                           reader=reader, progress=display, steps=steps, min_lr=min_lr, max_lr=max_lr, smoothing=smoothing)
+    finally:
+        display.close()
+    last = result.learning_rates[-1]
+    out.print(f"{options.optimizer}: {len(result.learning_rates)} steps, learning rate {min_lr:g} to {last:.3g}; "
+              f"stopped: {result.stop_reason}", markup=False, soft_wrap=True)
+    if result.suggestion is None:
+        out.print("no suggestion: the smoothed loss never fell; try a larger --max-lr or more --steps", markup=False)
+    else:
+        out.print(f"suggested learning rate: {result.suggestion:.3g}", markup=False)
+    if out_dir is not None:
+        with status(f"Writing {out_dir}", quiet):
+            where = result.save(out_dir)
+        out.print(f"plot and table written to {where}", markup=False, soft_wrap=True)

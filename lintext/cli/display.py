@@ -1,0 +1,78 @@
+"""The one progress display, and tables printed at their own width.
+
+:class:`Display` is the ``progress`` callback every long library operation takes: a spinner
+while reading, featurizing or evaluating, then one bar over the epochs of a run, the runs of
+a sweep or the steps of a probe. It draws on the terminal only (see :func:`app.show_progress`).
+"""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+from .app import err, out
+
+_SPINNER_TEXT = {
+    "reading": lambda e: f"Reading {e.get('path')}",
+    "featurizing": lambda e: f"Featurizing {e.get('documents', '')} documents",
+    "evaluating": lambda e: f"Evaluating on {e.get('path')}",
+}
+
+
+class Display:
+    """Progress of a command: pass it as the library's ``progress`` callback, call :meth:`close` at the end."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled
+        self.progress = None
+        self.task = None
+        self.spinner = None
+
+    def __call__(self, event: dict) -> None:
+        if not self.enabled:
+            return
+        stage = event.get("stage")
+        if stage in _SPINNER_TEXT:
+            self._stop_spinner()
+            self.spinner = err.status(_SPINNER_TEXT[stage](event))
+            self.spinner.start()
+        elif stage == "epoch":
+            info = f"train loss {event['train_loss']:.4f}"
+            if event.get("dev_loss") is not None:
+                info += (f"  dev loss {event['dev_loss']:.4f}  dev accuracy {event['dev_accuracy']:.3f}  "
+                         f"dev macro-F1 {event['dev_macro_f1']:.3f}")
+            self._bar("epoch", event["epochs"], event["epoch"], info)
+        elif stage == "run":
+            row = event["row"]
+            self._bar("run", event["total"], event["done"], f"{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
+        elif stage == "probe":
+            self._bar("step", event["steps"], event["step"],
+                      f"learning rate {event['learning_rate']:.3g}  loss {event['smoothed_loss']:.4f}")
+
+    def _bar(self, unit: str, total: int, done: int, info: str) -> None:
+        self._stop_spinner()
+        if self.progress is None:
+            self.progress = Progress(TextColumn(f"{unit} {{task.completed}}/{{task.total}}"), BarColumn(),
+                                     TextColumn("{task.fields[info]}"), TimeElapsedColumn(), console=err)
+            self.progress.start()
+            self.task = self.progress.add_task(unit, total=total, info="")
+        self.progress.update(self.task, completed=done, info=info)
+
+    def _stop_spinner(self):
+        if self.spinner is not None:
+            self.spinner.stop()
+            self.spinner = None
+
+    def close(self):
+        self._stop_spinner()
+        if self.progress is not None:
+            self.progress.stop()
+
+
+def print_wide(table) -> None:
+    """Print a table without cutting a cell: at its own width when the terminal (or a pipe) is narrower."""
+    needed = Console(width=400).measure(table).maximum
+    if out.is_terminal and out.width >= needed:
+        out.print(table)
+    else:
+        Console(file=out.file, width=needed, highlight=False, force_terminal=out.is_terminal).print(table)

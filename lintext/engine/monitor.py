@@ -1,0 +1,79 @@
+"""What the trainer watches after each epoch (dev scores, the history row, the best epoch so far) and what it returns.
+
+Shared by the stochastic trainer and L-BFGS. The monitored metric is spelled as the command
+line's ``--stop-metric`` (``dev-loss``, ``accuracy``, ``macro-f1``), or ``train-loss`` when there
+is no dev set; history rows keep the keys ``train_loss``, ``dev_loss``, ``dev_accuracy``,
+``dev_macro_f1``, ``learning_rate``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from sklearn.metrics import accuracy_score, f1_score
+
+from . import kernels, losses
+from .options import TrainOptions
+
+# History key of each monitored metric.
+METRIC_KEYS = {"dev-loss": "dev_loss", "accuracy": "dev_accuracy", "macro-f1": "dev_macro_f1", "train-loss": "train_loss"}
+
+
+class Monitor:
+    """Tracks the best value of the monitored metric and the epochs since it."""
+
+    def __init__(self, metric: str, min_improvement: float):
+        self.key = METRIC_KEYS[metric]
+        self.higher_is_better = metric in ("accuracy", "macro-f1")
+        self.min_improvement = min_improvement
+        self.best = None
+        self.since_best = 0
+
+    def update(self, row: dict) -> bool:
+        value = row[self.key]
+        if self.best is None:
+            improved = True
+        elif self.higher_is_better:
+            improved = value > self.best + self.min_improvement
+        else:
+            improved = value < self.best - self.min_improvement
+        if improved:
+            self.best = value
+            self.since_best = 0
+        else:
+            self.since_best += 1
+        return improved
+
+
+def history_row(epoch, train_loss, lr, params, loss, dev, y_dev, threads=1) -> dict:
+    row = {"epoch": epoch, "train_loss": float(train_loss), "dev_loss": None, "dev_accuracy": None,
+           "dev_macro_f1": None, "learning_rate": None if lr is None else float(lr)}
+    if dev is not None:
+        S = kernels.decision_scores(*dev, params, threads=threads)
+        row.update(dev_scores(S, y_dev, loss))
+    return row
+
+
+def dev_scores(S, y_dev, loss) -> dict:
+    """Dev loss (mean, no L2 term), accuracy and macro-F1 of scores ``S`` (``sklearn.metrics``)."""
+    pred = S.argmax(axis=1)
+    every = np.arange(S.shape[1])
+    return {
+        "dev_loss": losses.mean_loss(loss, S, y_dev),
+        "dev_accuracy": float(accuracy_score(y_dev, pred)),
+        "dev_macro_f1": float(f1_score(y_dev, pred, labels=every, average="macro", zero_division=0)),
+    }
+
+
+@dataclass
+class TrainResult:
+    """What :func:`fit` returns; see the module docstring for the meaning of each field."""
+
+    coef: np.ndarray
+    intercept: np.ndarray
+    history: list[dict]
+    best_epoch: int
+    stopped_early: bool
+    feature_stats: dict[str, np.ndarray]
+    options: TrainOptions = field(default_factory=TrainOptions)

@@ -1,0 +1,216 @@
+"""Trainer: epochs, shuffling, dev evaluation, early stopping, plateau decay, divergence guard.
+
+Python orchestrates and the compiled kernel (:mod:`lintext.engine.kernels`) runs each epoch.
+Decisions worth knowing:
+
+* ``train_loss`` in the history is the *progressive* mean loss of the epoch: each
+  example's loss is computed before its batch's update, without the L2 term. ``dev_loss``
+  is the mean loss on the dev rows at the end of the epoch (no L2 term either).
+* ``learning_rate`` in the history is the step size of the epoch's last step.
+* Early stopping is on when dev data is given and ``patience > 0``: after ``patience``
+  epochs without an improvement of at least ``min_improvement`` in ``stop_metric``, training
+  stops and the weights of the best epoch are restored (they are also restored when the
+  last epoch is not the best). Without dev data or with ``patience = 0`` every epoch runs
+  and the last weights are kept. ``best_epoch`` is the epoch whose weights are returned.
+* Decay-on-plateau (``schedule="plateau"``): after an epoch in which the monitored metric
+  (``stop_metric`` on dev; the train loss without dev data) did not improve on its best by
+  ``min_improvement``, the learning rate is multiplied by ``plateau_factor``.
+* Divergence: a non-finite train loss, non-finite weights, or a train loss above 1000
+  times a reference raise :class:`~lintext.errors.DivergenceError` naming the base learning
+  rate. The reference is the larger of the first epoch's loss and the loss of the all-zero
+  model (``log(n_labels)`` for softmax, 1 for hinge), and the first epoch is held to the
+  latter: softmax and hinge grow only linearly in the weights, so a run wild from its first
+  epoch would otherwise never trip the guard, and a tiny first-epoch loss (hinge on easy
+  data) would make ordinary noise look like divergence. Non-finite weights are never
+  returned.
+* Feature statistics are accumulated over every epoch run (also after the best epoch).
+  ``effective_step`` is NaN for a feature that never had a non-zero gradient.
+* ``optimizer="lbfgs"`` minimises ``mean loss + (l2/2)||W||^2`` with SciPy's L-BFGS-B
+  (``epochs`` = most iterations; one history row per iteration, ``learning_rate`` None).
+  Early stopping works as above, per iteration; there is no plateau decay. Its
+  ``update_count`` and ``abs_update_sum`` are zeros and ``effective_step`` NaN (no per-feature
+  steps to report). Without L2 on separable text it overfits as iterations go: give it
+  ``l2`` or dev data.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from typing import Callable
+
+import numpy as np
+import scipy.sparse as sp
+
+from ..errors import ConfigError, DivergenceError
+from . import kernels, losses
+from .lbfgs import fit_lbfgs
+from .monitor import Monitor, TrainResult, history_row
+from .optimizers import kernel_hyperparameters
+from .options import TrainOptions
+from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
+
+DIVERGENCE_FACTOR = 1e3
+
+
+def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | None = None,
+        progress: Callable[[dict], None] | None = None) -> TrainResult:
+    """Train a linear classifier on sparse features.
+
+    Parameters
+    ----------
+    X : scipy.sparse matrix of shape (n, n_features)
+        Training features (converted to CSR; float64 or float32).
+    y : int array of shape (n,)
+        Label index of each row, in ``[0, n_labels)``.
+    n_labels : int
+        Number of labels (at least 2).
+    X_dev, y_dev : optional
+        Dev rows, used for the history, early stopping and plateau decay; never for training.
+    options : TrainOptions, optional
+    progress : callable, optional
+        Called after each epoch with the history row plus ``epochs`` (the most epochs).
+
+    Returns
+    -------
+    TrainResult
+
+    Raises
+    ------
+    ConfigError
+        For a bad option.
+    DivergenceError
+        When the loss explodes or a weight becomes non-finite.
+    """
+    options = options if options is not None else TrainOptions()
+    options.validate()
+    if int(n_labels) < 2:
+        raise ConfigError("n_labels", n_labels, "need at least two labels")
+    n_labels = int(n_labels)
+    X, y = check_training_arrays(X, y, n_labels, "X", "y")
+    if (X_dev is None) != (y_dev is None):
+        raise ValueError("give both X_dev and y_dev, or neither")
+    if X_dev is not None:
+        X_dev, y_dev = check_training_arrays(X_dev, y_dev, n_labels, "X_dev", "y_dev")
+        if X_dev.shape[1] != X.shape[1]:
+            raise ValueError(f"X_dev has {X_dev.shape[1]} columns, X has {X.shape[1]}")
+        if X_dev.shape[0] == 0:
+            X_dev = y_dev = None
+    if options.optimizer == "lbfgs":
+        return fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
+    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress)
+
+
+# --------------------------------------------------------------------------- stochastic rules
+
+
+def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
+    dtype = np.dtype(options.precision)
+    n, n_features = X.shape
+    data = np.ascontiguousarray(X.data, dtype=dtype)  # float32: converted once, here
+    code = options.spec.code
+    rule = options.make_rule()
+    hyper = kernel_hyperparameters(rule)
+    threads = kernels.resolve_threads(options.threads)
+    base_lr = options.base_learning_rate()
+    lr = base_lr
+    params = np.zeros((n_features + 1, n_labels), dtype=dtype)
+    state = kernels.KernelState.new(n_features, n_labels, code, dtype)
+    rng = np.random.default_rng(options.seed)
+    schedule_code = SCHEDULE_CODES[options.schedule]
+    early_stopping = X_dev is not None and options.patience > 0
+    dev = None if X_dev is None else (X_dev.indptr, X_dev.indices, X_dev.data)
+
+    history: list[dict] = []
+    monitor = Monitor(options.stop_metric if X_dev is not None else "train-loss", options.min_improvement)
+    best_params = None
+    best_epoch = 0
+    stopped_early = False
+    zero_model_loss = math.log(n_labels) if options.loss == "softmax" else 1.0
+    reference_loss = zero_model_loss
+    last_lr = lr
+    for epoch in range(1, options.epochs + 1):
+        started = time.perf_counter()
+        order = rng.permutation(n).astype(np.int64)
+        # flush=False: the decaying rules leave the state decay of absent rows to their next
+        # touch (the weights are exact after every epoch either way); flushed once below.
+        loss_sum, finite = kernels.run_epoch(
+            X.indptr, X.indices, data, y, order, params, state, loss_code=losses.LOSS_CODES[options.loss],
+            optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
+            l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
+            **hyper)
+        train_loss = loss_sum / n
+        if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
+                or not kernels.all_finite(params)):
+            raise DivergenceError(base_lr, epoch, train_loss, options.optimizer)
+        if epoch == 1:
+            reference_loss = max(train_loss, zero_model_loss)
+        last_lr = schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)
+        row = history_row(epoch, train_loss, last_lr, params, options.loss, dev, y_dev, threads)
+        improved = monitor.update(row)
+        if improved:
+            best_epoch = epoch
+            if early_stopping:  # one buffer, reused: at most one extra copy of the weights
+                if best_params is None:
+                    best_params = params.copy()
+                else:
+                    np.copyto(best_params, params)
+        row["seconds"] = time.perf_counter() - started
+        history.append(row)
+        if progress is not None:
+            progress({**row, "epochs": options.epochs})
+        if early_stopping and monitor.since_best >= options.patience:
+            stopped_early = epoch < options.epochs
+            break
+        if options.schedule == "plateau":
+            lr = plateau_update(lr, improved, options.plateau_factor)
+
+    kernels.flush(params, state, optimizer_code=code, beta1=hyper["beta1"], beta2=hyper["beta2"],
+                  rho=hyper["rho"], threads=threads)
+    if early_stopping and best_params is not None:
+        params = best_params
+    else:
+        best_epoch = len(history)
+    stats = _feature_stats(rule, state, code, last_lr, n_features)
+    return TrainResult(np.ascontiguousarray(params[:-1]), params[-1].copy(), history, best_epoch,
+                       stopped_early, stats, options)
+
+
+def _feature_stats(rule, state, code, lr, n_features, block=1 << 14) -> dict:
+    count = state.stat_update_count[:n_features].copy()
+    n_labels = state.first_moment.shape[1]
+    step = np.empty(n_features)
+    rule_state = state.rule_state(code)
+    # Blocks of rows: the rule's effective step is computed on whole arrays, and at once its
+    # temporaries would be several times the size of the weights.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for lo in range(0, n_features, block):
+            hi = min(lo + block, n_features)
+            part = np.asarray(rule.effective_step({k: v[lo:hi] for k, v in rule_state.items()}, lr),
+                              dtype=np.float64)
+            step[lo:hi] = np.broadcast_to(part, (hi - lo, n_labels)).mean(axis=1)
+    return {"update_count": count, "abs_update_sum": state.stat_abs_update_sum[:n_features].copy(),
+            "effective_step": np.where(count > 0, step, np.nan)}
+
+
+# --------------------------------------------------------------------------- checks
+
+
+def check_training_arrays(X, y, n_labels, xname="X", yname="y"):
+    """``X`` as CSR (float64 or float32, finite) and ``y`` as int64 label indices in
+    ``[0, n_labels)``, one per row; ``ValueError`` naming the argument otherwise."""
+    if not sp.issparse(X):
+        raise ValueError(f"{xname} must be a scipy sparse matrix, got {type(X).__name__}")
+    X = sp.csr_matrix(X)
+    if X.dtype not in (np.float64, np.float32):
+        X = X.astype(np.float64)
+    if not np.all(np.isfinite(X.data)):
+        raise ValueError(f"{xname} holds non-finite values")
+    y = np.asarray(y)
+    if y.ndim != 1 or y.shape[0] != X.shape[0]:
+        raise ValueError(f"{yname} must have one label per row of {xname} ({X.shape[0]}), got shape {y.shape}")
+    if y.size and (not np.issubdtype(y.dtype, np.integer) or y.min() < 0 or y.max() >= n_labels):
+        raise ValueError(f"{yname} must hold label indices in [0, {n_labels})")
+    if X.shape[0] == 0 and xname == "X":
+        raise ValueError("X has no rows")
+    return X, y.astype(np.int64)

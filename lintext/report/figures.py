@@ -1,0 +1,433 @@
+"""Figures of the report, drawn with matplotlib and returned as inline SVG text.
+
+No pyplot (no global figure state, no GUI backend): each function builds a
+:class:`matplotlib.figure.Figure`, and :func:`svg_text` turns it into an ``<svg>``
+element with its own id prefix, text kept as text (``svg.fonttype = "none"``), no
+metadata, no DOCTYPE and no namespace URLs, so the page references nothing outside
+itself. A function returns ``None`` when the model lacks what the figure shows.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+
+import matplotlib as mpl
+import numpy as np
+from matplotlib.figure import Figure
+
+from .stats import bin_bounds
+
+INK = "#1d232b"
+MUTED = "#4a5563"
+GRID = "#dde2e7"
+POINTS = "#6c8a99"
+SERIES = ["#17656f", "#b35c00", "#7b3a78", "#33507a", "#5d6b12", "#a3342c", "#2f7d4f", "#8a5a14"]
+
+STYLE = {
+    "svg.fonttype": "none",
+    "svg.hashsalt": "lintext-report",
+    "font.family": "sans-serif",
+    "font.sans-serif": ["DejaVu Sans", "Liberation Sans", "Arial", "Helvetica"],
+    "font.size": 9.5,
+    "axes.titlesize": 10.5,
+    "axes.labelsize": 9.5,
+    "axes.edgecolor": MUTED,
+    "axes.labelcolor": INK,
+    "axes.titlecolor": INK,
+    "axes.grid": True,
+    "grid.color": GRID,
+    "grid.linewidth": 0.7,
+    "axes.axisbelow": True,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "xtick.color": INK,
+    "ytick.color": INK,
+    "legend.frameon": False,
+    "legend.fontsize": 8.5,
+    "lines.linewidth": 1.8,
+    "figure.facecolor": "white",
+    "axes.facecolor": "white",
+}
+
+
+# One marker per meaning on every page: a ring is a best epoch, a star the best run, a cross a
+# run that diverged.
+BEST_EPOCH = {"marker": "o", "ms": 7, "mfc": "white", "mew": 1.6}
+BEST_RUN = {"marker": "*", "ms": 16, "color": "gold", "mec": "black"}
+DIVERGED = {"marker": "x", "ms": 9, "mew": 1.8}
+
+
+def new_figure(width: float, height: float, ncols: int = 1, sharey: bool = False):
+    """A constrained-layout figure (no pyplot) and its row of ``ncols`` axes."""
+    fig = Figure(figsize=(width, height), layout="constrained")
+    axes = fig.subplots(1, ncols, squeeze=False, sharey=sharey)[0]
+    return fig, list(axes)
+
+
+def svg_text(fig: Figure, prefix: str, title: str) -> str:
+    """The figure as an inline ``<svg>`` element (ids prefixed with ``prefix``)."""
+    buf = io.StringIO()
+    fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None, "Format": None, "Type": None})
+    text = buf.getvalue()
+    text = text[text.index("<svg"):]
+    text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.S)
+    text = re.sub(r'\s+xmlns(:\w+)?="[^"]*"', "", text)
+    ids = set(re.findall(r'\sid="([^"]+)"', text))
+    if ids:
+        pattern = re.compile(r'(\sid="|#)(' + "|".join(re.escape(i) for i in sorted(ids, key=len, reverse=True)) + r')(?=["\)])')
+        text = pattern.sub(lambda m: f"{m.group(1)}{prefix}-{m.group(2)}", text)
+    size = re.match(r'<svg([^>]*?)\swidth="([\d.]+)pt"\s+height="([\d.]+)pt"', text)
+    if size:
+        width = float(size.group(2))
+        text = re.sub(r'\swidth="[\d.]+pt"\s+height="[\d.]+pt"',
+                      f' class="figure" role="img" style="max-width:{width:.0f}pt"', text, count=1)
+    text = text.replace("<svg", f'<svg aria-label="{_attr(title)}"', 1)
+    return text.strip()
+
+
+def _attr(text: str) -> str:
+    return text.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
+
+
+def render(build, prefix: str, title: str, *args, **kwargs) -> str | None:
+    """``build(*args, **kwargs)`` drawn in the report's style and returned as inline SVG
+    (``None`` when ``build`` returns ``None``: nothing to show)."""
+    with mpl.rc_context(STYLE):
+        fig = build(*args, **kwargs)
+        if fig is None:
+            return None
+        return svg_text(fig, prefix, title)
+
+
+def _finite(values) -> np.ndarray:
+    return np.array([math.nan if v is None else float(v) for v in values], dtype=np.float64)
+
+
+def _epoch_axis(ax, epochs):
+    ax.set_xlabel("epoch")
+    epochs = [int(e) for e in epochs]
+    if len(epochs) and max(epochs) - min(epochs) < 3:
+        ax.set_xticks(range(min(epochs), max(epochs) + 1))
+        ax.set_xlim(min(epochs) - 0.5, max(epochs) + 0.5)
+    else:
+        ax.xaxis.set_major_locator(mpl.ticker.MaxNLocator(integer=True))
+
+
+def _tick(value, _pos=None) -> str:
+    return f"{value:g}"
+
+
+def plain_log(ax, axis: str = "y") -> None:
+    """Log-axis tick labels as plain numbers (``0.2``, ``5``, ``100``), minor ones labelled on short spans."""
+    target = ax.yaxis if axis == "y" else ax.xaxis
+    lo, hi = ax.get_ylim() if axis == "y" else ax.get_xlim()
+    formatter = mpl.ticker.FuncFormatter(_tick)
+    target.set_major_formatter(formatter)
+    if lo > 0 and hi / lo < 40:
+        target.set_minor_locator(mpl.ticker.LogLocator(subs=(2.0, 5.0)))
+        target.set_minor_formatter(formatter)
+    else:
+        target.set_minor_formatter(mpl.ticker.NullFormatter())
+
+
+def _note(ax, text: str):
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=MUTED)
+    ax.set_xticks([])
+    ax.set_yticks([])
+    ax.grid(False)
+
+
+# ---------------------------------------------------------------- one model
+
+
+def learning_curves(history: list, best_epoch: int | None, loss_name: str, prefix: str = "lc") -> str | None:
+    """Loss (train, dev), dev accuracy and macro-F1, and the step size in effect, per epoch."""
+    return render(_learning_curves, prefix, "Learning curves", history, best_epoch, loss_name)
+
+
+def _learning_curves(history, best_epoch, loss_name):
+    if not history:
+        return None
+    epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)])
+    fig, (ax_loss, ax_metric, ax_lr) = new_figure(10.5, 3.3, 3)
+    train = _finite(row.get("train_loss") for row in history)
+    dev = _finite(row.get("dev_loss") for row in history)
+    ax_loss.plot(epochs, train, color=SERIES[0], marker="o", ms=3, label="train")
+    if np.isfinite(dev).any():
+        ax_loss.plot(epochs, dev, color=SERIES[1], marker="s", ms=3, ls="--", label="dev")
+    ax_loss.set_ylabel(f"mean {loss_name} loss")
+    ax_loss.set_title("Loss")
+    ax_loss.legend()
+    acc = _finite(row.get("dev_accuracy") for row in history)
+    f1 = _finite(row.get("dev_macro_f1") for row in history)
+    if np.isfinite(acc).any() or np.isfinite(f1).any():
+        ax_metric.plot(epochs, acc, color=SERIES[2], marker="o", ms=3, label="accuracy")
+        ax_metric.plot(epochs, f1, color=SERIES[3], marker="s", ms=3, ls="--", label="macro-F1")
+        ax_metric.set_ylabel("dev score")
+        ax_metric.legend()
+    else:
+        _note(ax_metric, "no dev set:\nno dev scores")
+    ax_metric.set_title("Dev scores")
+    lr = _finite(row.get("learning_rate") for row in history)
+    if np.isfinite(lr).any():
+        ax_lr.plot(epochs, lr, color=SERIES[4], marker="o", ms=3, drawstyle="steps-mid")
+        positive = lr[np.isfinite(lr) & (lr > 0)]
+        if positive.size and positive.max() / positive.min() > 20:
+            ax_lr.set_yscale("log")
+            plain_log(ax_lr)
+            ax_lr.set_ylabel("learning rate in effect (log scale)")
+        else:
+            top = float(np.nanmax(lr)) if np.isfinite(lr).any() else 1.0
+            ax_lr.set_ylim(0, top * 1.25 if top > 0 else 1.0)
+            ax_lr.set_ylabel("learning rate in effect")
+    else:
+        _note(ax_lr, "no step size recorded")
+    ax_lr.set_title("Step size")
+    at = [i for i, e in enumerate(epochs) if e == best_epoch]
+    for ax in (ax_loss, ax_metric, ax_lr):
+        if not ax.has_data():
+            continue
+        _epoch_axis(ax, epochs)
+        if at:  # a ring on every curve at the best epoch
+            for line in list(ax.get_lines()):
+                y = line.get_ydata()
+                if len(y) == len(epochs) and np.isfinite(y[at[0]]):
+                    ax.plot([best_epoch], [y[at[0]]], color=line.get_color(), ls="none", **BEST_EPOCH)
+    if at and ax_loss.has_data():
+        ax_loss.plot([], [], color=MUTED, ls="none", label=f"best epoch ({best_epoch})", **BEST_EPOCH)
+        ax_loss.legend()
+    return fig
+
+
+def frequency_updates(table: dict, bins: list, sample: int = 1500, prefix: str = "fu") -> str | None:
+    """Document frequency against sum |Δw| and against the final weight norm, log axes."""
+    return render(_frequency_updates, prefix, "Document frequency against update magnitude and weight norm", table, bins, sample)
+
+
+def _frequency_updates(table, bins, sample):
+    df = np.asarray(table["document_frequency"], dtype=np.float64)
+    upd = np.asarray(table["abs_update_sum"], dtype=np.float64)
+    norm = np.asarray(table["weight_norm"], dtype=np.float64)
+    usable = lambda values: (df >= 1) & np.isfinite(values) & (values > 0)  # noqa: E731
+    if not usable(upd).any() and not usable(norm).any():
+        return None
+    fig, (ax_u, ax_w) = new_figure(10.5, 3.9, 2)
+    rng = np.random.default_rng(0)
+    panels = [
+        (ax_u, upd, "sum of |Δw| over training (log scale)", "Update magnitude",
+         "no gradient-step updates recorded\n(L-BFGS, or no update statistics)"),
+        (ax_w, norm, "final weight norm, L2 across labels (log scale)", "Final weight", "all weights are zero"),
+    ]
+    for ax, values, ylabel, title, missing in panels:
+        ax.set_title(title)
+        ok = np.flatnonzero(usable(values))
+        if ok.size == 0:
+            _note(ax, missing)
+            continue
+        shown = np.sort(rng.choice(ok, size=sample, replace=False)) if ok.size > sample else ok
+        jitter = np.exp(rng.uniform(-0.18, 0.18, size=shown.size))
+        ax.scatter(df[shown] * jitter, values[shown], s=5, color=POINTS, alpha=0.35, linewidths=0,
+                   label=f"features ({shown.size:,} of {ok.size:,} shown)" if shown.size < ok.size else "features")
+        centres, med, q25, q75 = [], [], [], []
+        for row in bins:
+            members = values[(table["frequency_bin"] == row["bin"]) & usable(values)]
+            if members.size == 0:
+                continue
+            lo, hi = bin_bounds(row["bin"])
+            centres.append(math.sqrt(lo * hi))
+            q = np.percentile(members, [25, 50, 75])
+            q25.append(q[0]), med.append(q[1]), q75.append(q[2])
+        ax.fill_between(centres, q25, q75, color=SERIES[0], alpha=0.18, linewidth=0, label="middle half per bin")
+        ax.plot(centres, med, color=SERIES[0], marker="o", ms=4, label="median per frequency bin")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        plain_log(ax, "x")
+        plain_log(ax, "y")
+        ax.set_xlabel("document frequency in training (log scale, jittered)")
+        ax.set_ylabel(ylabel)
+        ax.legend(loc="best")
+    return fig
+
+
+def effective_steps(bins: list, prefix: str = "es") -> str | None:
+    """Median effective step size per frequency bin, with interquartile bars."""
+    return render(_effective_steps, prefix, "Effective step size per frequency bin", bins)
+
+
+def _effective_steps(bins):
+    rows = [r for r in bins if np.isfinite(r["median_effective_step"])]
+    if not rows:
+        return None
+    crowded = len(rows) > 7
+    fig, (ax,) = new_figure(6.8 + (0.35 * (len(rows) - 7) if crowded else 0), 3.6 if crowded else 3.3)
+    x = np.arange(len(rows))
+    med = np.array([r["median_effective_step"] for r in rows])
+    lo = med - np.array([r["effective_step_q25"] for r in rows])
+    hi = np.array([r["effective_step_q75"] for r in rows]) - med
+    ax.errorbar(x, med, yerr=[lo, hi], color=SERIES[2], marker="o", ms=5, capsize=3, lw=1.6)
+    ax.set_xticks(x, [r["label"] for r in rows], rotation=40 if crowded else 0, ha="right" if crowded else "center")
+    top = float((med + hi).max())
+    bottom = float((med - lo).min())
+    if bottom > 0 and top / bottom > 20:
+        ax.set_yscale("log")
+        plain_log(ax)
+        ax.set_ylabel("effective step size (log scale)")
+    else:
+        ax.set_ylim(0, top * 1.2 if top > 0 else 1.0)  # from zero, so a flat line reads as flat
+        ax.set_ylabel("effective step size")
+    ax.set_xlabel("document frequency bin (training documents)")
+    ax.set_title("Final per-feature step size, median and interquartile range")
+    return fig
+
+
+def confusion(matrix, labels, which: str, prefix: str = "cm") -> str | None:
+    """Confusion matrix: cell colour is the share of the true label's documents, text the count."""
+    return render(_confusion, prefix, f"Confusion matrix on the {which} set", matrix, labels, which)
+
+
+def _confusion(matrix, labels, which):
+    counts = np.asarray(matrix, dtype=np.float64)
+    if counts.ndim != 2 or counts.shape[0] != counts.shape[1] or counts.shape[0] != len(labels):
+        return None
+    n = len(labels)
+    side = min(8.5, 2.6 + 0.62 * n)
+    fig, (ax,) = new_figure(side + 1.2, side)
+    totals = counts.sum(axis=1, keepdims=True)
+    share = np.divide(counts, totals, out=np.zeros_like(counts), where=totals > 0)
+    # ten discrete shades drawn as vector cells, so neither the matrix nor its colour bar is rasterised
+    cmap = mpl.colors.LinearSegmentedColormap.from_list("lintext", ["#ffffff", "#9fc9cf", SERIES[0], "#0b343a"], N=10)
+    norm = mpl.colors.BoundaryNorm(np.linspace(0, 1, 11), cmap.N)
+    edges = np.arange(n + 1) - 0.5
+    image = ax.pcolormesh(edges, edges, share, cmap=cmap, norm=norm, edgecolors="white", linewidth=0.8)
+    ax.set_xlim(-0.5, n - 0.5)
+    ax.set_ylim(n - 0.5, -0.5)
+    ax.set_aspect("equal")
+    ax.grid(False)
+    for i in range(n):
+        for j in range(n):
+            ax.text(j, i, f"{int(counts[i, j])}", ha="center", va="center", fontsize=8.5,
+                    color="white" if share[i, j] > 0.45 else INK)
+    ax.set_xticks(range(n), labels, rotation=35, ha="right")
+    ax.set_yticks(range(n), labels)
+    ax.set_xlabel("predicted label")
+    ax.set_ylabel("true label")
+    ax.set_title(f"{which} set: counts; colour = share of the true label")
+    ax.spines[:].set_visible(False)
+    bar = fig.colorbar(image, ax=ax, shrink=0.75)
+    bar.set_label("share of the row (recall on the diagonal)")
+    return fig
+
+
+# ---------------------------------------------------------------- several models
+
+
+def compare_frequency(series: list, prefix: str = "cf") -> str | None:
+    """Median sum |Δw| (with interquartile band) and median effective step per bin, one line per model.
+
+    ``series``: list of ``(name, bins)``.
+    """
+    return render(_compare_frequency, prefix, "Update magnitude and step size per frequency bin, by model", series)
+
+
+def _compare_frequency(series):
+    if not any(r["median_update"] > 0 for _, bins in series for r in bins):  # NaN compares False
+        return None
+    fig, (ax_u, ax_s) = new_figure(10.5, 3.9, 2)
+    any_step = False
+    for k, (name, bins) in enumerate(series):
+        colour = SERIES[k % len(SERIES)]
+        rows = [r for r in bins if np.isfinite(r["median_update"]) and r["median_update"] > 0]
+        if rows:
+            x = [math.sqrt(r["low"] * r["high"]) for r in rows]
+            low = [r["update_q25"] if r["update_q25"] > 0 else r["median_update"] for r in rows]
+            ax_u.fill_between(x, low, [r["update_q75"] for r in rows],
+                              color=colour, alpha=0.12, linewidth=0)
+            ax_u.plot(x, [r["median_update"] for r in rows], color=colour, marker="o", ms=4, label=name)
+        steps = [r for r in bins if np.isfinite(r["median_effective_step"]) and r["median_effective_step"] > 0]
+        if steps:
+            any_step = True
+            ax_s.plot([math.sqrt(r["low"] * r["high"]) for r in steps], [r["median_effective_step"] for r in steps],
+                      color=colour, marker="o", ms=4, label=name)
+    ax_u.set_xscale("log")
+    ax_u.set_yscale("log")
+    plain_log(ax_u, "x")
+    plain_log(ax_u, "y")
+    ax_u.set_xlabel("document frequency in training (log scale)")
+    ax_u.set_ylabel("median sum of |Δw| per feature (log scale)")
+    ax_u.set_title("Update magnitude per frequency bin")
+    ax_u.legend()
+    if any_step:
+        ax_s.set_xscale("log")
+        ax_s.set_yscale("log")
+        plain_log(ax_s, "x")
+        plain_log(ax_s, "y")
+        ax_s.set_xlabel("document frequency in training (log scale)")
+        ax_s.set_ylabel("median effective step size (log scale)")
+        ax_s.legend()
+    else:
+        _note(ax_s, "no effective step sizes recorded")
+    ax_s.set_title("Final step size per frequency bin")
+    return fig
+
+
+def compare_learning(series: list, prefix: str = "cl") -> str | None:
+    """Train and dev loss, dev accuracy and step size per epoch, one colour per model.
+
+    ``series``: list of ``(name, history, best_epoch, loss_name)``.
+    """
+    return render(_compare_learning, prefix, "Learning curves, by model", series)
+
+
+def _compare_learning(series):
+    if not any(history for _, history, _, _ in series):
+        return None
+    fig, (ax_loss, ax_acc, ax_lr) = new_figure(10.5, 3.6, 3)
+    losses = sorted({loss for _, _, _, loss in series})
+    any_dev = any_lr = False
+    all_epochs = []
+    for k, (name, history, best, _) in enumerate(series):
+        if not history:
+            continue
+        colour = SERIES[k % len(SERIES)]
+        epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)])
+        all_epochs += epochs.tolist()
+        ax_loss.plot(epochs, _finite(r.get("train_loss") for r in history), color=colour, label=f"{name} train")
+        dev = _finite(r.get("dev_loss") for r in history)
+        if np.isfinite(dev).any():
+            ax_loss.plot(epochs, dev, color=colour, ls="--", label=f"{name} dev")
+        acc = _finite(r.get("dev_accuracy") for r in history)
+        if np.isfinite(acc).any():
+            any_dev = True
+            ax_acc.plot(epochs, acc, color=colour, marker="o", ms=3, label=name)
+            if best:
+                at = [i for i, e in enumerate(epochs) if e == best]
+                if at:
+                    ax_acc.plot([best], [acc[at[0]]], color=colour, ls="none", **BEST_EPOCH)
+        lr = _finite(r.get("learning_rate") for r in history)
+        if np.isfinite(lr).any() and (lr[np.isfinite(lr)] > 0).all():
+            any_lr = True
+            ax_lr.plot(epochs, lr, color=colour, drawstyle="steps-mid", label=name)
+    ax_loss.set_ylabel(f"mean {' / '.join(losses)} loss")
+    ax_loss.set_title("Loss (solid: train, dashed: dev)")
+    ax_loss.legend(fontsize=7.5)
+    if any_dev:
+        ax_acc.set_ylabel("dev accuracy")
+        ax_acc.set_title("Dev accuracy (ring: best epoch)")
+        ax_acc.legend()
+    else:
+        _note(ax_acc, "no dev set")
+        ax_acc.set_title("Dev accuracy")
+    if any_lr:
+        ax_lr.set_yscale("log")
+        plain_log(ax_lr)
+        ax_lr.set_ylabel("learning rate in effect (log scale)")
+        ax_lr.legend()
+    else:
+        _note(ax_lr, "no step size recorded")
+    ax_lr.set_title("Step size")
+    for ax in (ax_loss, ax_acc, ax_lr):
+        if ax.has_data():
+            _epoch_axis(ax, all_epochs)
+    return fig

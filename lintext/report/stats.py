@@ -1,0 +1,274 @@
+"""Numbers behind the report: per-feature statistics, frequency bins, notable features.
+
+Everything here is plain NumPy over a :class:`~lintext.model.Model`; nothing draws or
+writes files. :mod:`lintext.report` lists the public functions.
+
+Vocabulary
+----------
+*document frequency* (``df``)
+    training documents containing the feature (the featurizer's count);
+*update count*
+    gradient steps in which the feature was present with a non-zero gradient;
+*update magnitude*
+    ``sum |Δw|`` over those steps and over labels (``abs_update_sum``);
+*weight norm*
+    the L2 norm of the feature's row of ``coef`` (its weights across labels);
+*effective step*
+    the final per-feature step size of an adaptive rule, mean over labels (NaN for
+    L-BFGS, where there is none).
+
+Frequency bins are log-spaced: ``1``, ``2``, ``3–4``, ``5–8``, ``9–16`` … bin ``k >= 1``
+holds ``2^(k-1) < df <= 2^k``; bin 0 holds ``df = 1``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..errors import ConfigError
+from ..evidence import RARE_DF, explain_section, hashed_names
+
+STAT_COLUMNS = ("update_count", "abs_update_sum", "effective_step")
+
+
+# ---------------------------------------------------------------- per-feature table
+
+
+def feature_table(model) -> dict:
+    """One row per feature of ``model``: its frequency, training updates and final weights.
+
+    Parameters
+    ----------
+    model : :class:`~lintext.model.Model`
+
+    Returns
+    -------
+    dict of equal-length columns (NumPy arrays, except the text columns, which are lists)
+
+        ``column`` (int), ``feature`` (text; in hashing mode the most frequent training
+        n-grams that fell into the column, joined by `` | ``, when the model's
+        ``info["explain"]`` has them, else ``""``), ``document_frequency`` (int),
+        ``update_count``, ``abs_update_sum``, ``effective_step`` (float; NaN when the model
+        has no ``feature_stats``), ``weight_norm`` (L2 norm of the ``coef`` row),
+        ``max_weight`` and ``max_weight_label`` (the largest of the row's weights and its
+        label), ``frequency_bin`` (index into :func:`frequency_bins`; -1 for ``df = 0``).
+
+    In vocabulary mode there is one row per vocabulary entry, in column order; in
+    hashing mode one row per column kept after the document-frequency limits.
+    """
+    feat = model.featurizer
+    df_all = np.asarray(feat.document_frequency, dtype=np.int64)
+    hashing = feat.config.hashing
+    if hashing:
+        columns = np.asarray(feat.used_columns, dtype=np.int64)
+        names_by_column = hashed_names(model)
+        names = [" | ".join(names_by_column.get(int(j), ())) for j in columns]
+    else:
+        columns = np.arange(len(feat.feature_names), dtype=np.int64)
+        names = list(feat.feature_names)
+    coef = np.asarray(model.coef, dtype=np.float64)[columns]
+    best = coef.argmax(axis=1) if coef.size else np.zeros(0, dtype=np.int64)
+    df = df_all[columns]
+    table = {
+        "column": columns,
+        "feature": names,
+        "document_frequency": df,
+    }
+    stats = model.feature_stats
+    for name in STAT_COLUMNS:
+        if stats is not None and name in stats:
+            table[name] = np.asarray(stats[name], dtype=np.float64)[columns]
+        else:
+            table[name] = np.full(len(columns), np.nan)
+    table["weight_norm"] = np.sqrt(np.einsum("ij,ij->i", coef, coef))
+    table["max_weight"] = coef[np.arange(len(columns)), best] if len(columns) else np.zeros(0)
+    table["max_weight_label"] = [model.labels[int(j)] for j in best]
+    table["frequency_bin"] = bin_index(df)
+    return table
+
+
+# ---------------------------------------------------------------- frequency bins
+
+
+def bin_index(df) -> np.ndarray:
+    """Log-spaced bin of each document frequency: 1 -> 0, 2 -> 1, 3–4 -> 2, 5–8 -> 3, …; 0 -> -1."""
+    df = np.asarray(df, dtype=np.int64)
+    # frexp(n)[1] is n's bit length for n >= 1 (and 0 for n = 0): ceil(log2(df)) without rounding.
+    k = np.frexp(np.maximum(df - 1, 0).astype(np.float64))[1].astype(np.int64)
+    return np.where(df >= 1, k, -1)
+
+
+def bin_bounds(k: int) -> tuple[int, int]:
+    """Smallest and largest document frequency in bin ``k``."""
+    return (1, 1) if k == 0 else (2 ** (k - 1) + 1, 2**k)
+
+
+def bin_label(k: int) -> str:
+    lo, hi = bin_bounds(k)
+    return str(lo) if lo == hi else f"{lo}–{hi}"
+
+
+def frequency_bins(table: dict) -> list[dict]:
+    """Summary of the features per log-spaced document-frequency bin.
+
+    Parameters
+    ----------
+    table : the output of :func:`feature_table`.
+
+    Returns
+    -------
+    list of dict, one per non-empty bin in increasing frequency, with ``bin`` (index),
+    ``label`` (``"3–4"``), ``low``, ``high``, ``features`` (count), ``feature_share``,
+    ``update_share`` (share of the total ``sum |Δw|``), ``median_weight_norm``,
+    ``median_update`` with ``update_q25`` and ``update_q75`` (quartiles of ``sum |Δw|``),
+    ``median_update_count``, ``median_effective_step`` with ``effective_step_q25`` and
+    ``effective_step_q75``. Statistics the model lacks are NaN; so are the update
+    statistics when no feature moved at all (L-BFGS records no gradient steps).
+    """
+    bins = table["frequency_bin"]
+    total_features = int((bins >= 0).sum())
+    updates = table["abs_update_sum"]
+    total_update = float(np.nansum(updates)) if np.isfinite(updates).any() else math.nan
+    rows = []
+    for k in np.unique(bins[bins >= 0]):
+        mask = bins == k
+        lo, hi = bin_bounds(int(k))
+        upd = updates[mask]
+        steps = table["effective_step"][mask]
+        q_upd = _quantiles(upd) if total_update > 0 else (math.nan,) * 3  # all zero: no gradient steps recorded
+        q_step = _quantiles(steps)
+        rows.append({
+            "bin": int(k),
+            "label": bin_label(int(k)),
+            "low": lo,
+            "high": hi,
+            "features": int(mask.sum()),
+            "feature_share": float(mask.sum() / total_features),
+            "update_share": float(np.nansum(upd) / total_update) if total_update > 0 else math.nan,
+            "median_weight_norm": float(np.median(table["weight_norm"][mask])),
+            "median_update": q_upd[1],
+            "update_q25": q_upd[0],
+            "update_q75": q_upd[2],
+            "median_update_count": _quantiles(table["update_count"][mask])[1] if total_update > 0 else math.nan,
+            "median_effective_step": q_step[1],
+            "effective_step_q25": q_step[0],
+            "effective_step_q75": q_step[2],
+        })
+    return rows
+
+
+def _quantiles(values) -> tuple[float, float, float]:
+    """Quartiles of the finite values (NaN when there are none)."""
+    values = np.asarray(values, dtype=np.float64)
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        return (math.nan, math.nan, math.nan)
+    q = np.percentile(values, [25, 50, 75])
+    return float(q[0]), float(q[1]), float(q[2])
+
+
+# ---------------------------------------------------------------- notable features
+
+
+def top_features(model, top: int = 10, label: str | None = None, table: dict | None = None) -> dict:
+    """The ``top`` features with the largest weight for each label (or for ``label`` only).
+
+    Returns
+    -------
+    dict label -> list of dict (``feature``, ``column``, ``weight``, ``document_frequency``,
+    ``weight_norm``), largest weight first.
+    """
+    table = feature_table(model) if table is None else table
+    coef = np.asarray(model.coef, dtype=np.float64)[table["column"]]
+    wanted = model.labels if label is None else [label]
+    out = {}
+    for name in wanted:
+        j = model.labels.index(name)
+        weights = coef[:, j]
+        order = np.lexsort((table["column"], -weights))[:top]
+        out[name] = [{
+            "feature": table["feature"][i] or f"column {int(table['column'][i])}",
+            "column": int(table["column"][i]),
+            "weight": float(weights[i]),
+            "document_frequency": int(table["document_frequency"][i]),
+            "weight_norm": float(table["weight_norm"][i]),
+        } for i in order]
+    return out
+
+
+def rare_heavy(model, top: int = 15, label: str | None = None, table: dict | None = None, rare_df: int = RARE_DF) -> list[dict]:
+    """Features in at most ``rare_df`` training documents with the largest weight norms.
+
+    These are the features the model may have memorised: seen once or twice, yet
+    weighted like the frequent ones. Each row has ``feature``, ``column``,
+    ``document_frequency``, ``weight_norm``, ``norm_rank`` (1 = the largest weight norm
+    of all features), ``norm_percentile`` (share of all features with a smaller norm),
+    ``max_weight``, ``max_weight_label`` and ``documents`` (from the model's
+    ``info["explain"]``, written at training time; empty when absent), each
+    ``{"source", "label", "snippet"}``. With ``label``, only features whose largest
+    weight goes to that label.
+    """
+    table = feature_table(model) if table is None else table
+    norms = table["weight_norm"]
+    df = table["document_frequency"]
+    n = len(norms)
+    candidates = np.flatnonzero((df >= 1) & (df <= rare_df))
+    if label is not None:
+        candidates = np.array([i for i in candidates if table["max_weight_label"][i] == label], dtype=np.int64)
+    order = candidates[np.lexsort((table["column"][candidates], -norms[candidates]))][:top]
+    documents = {int(item["column"]): item.get("documents", []) for item in explain_section(model).get("rare_features", [])}
+    rows = []
+    for i in order:
+        norm = float(norms[i])
+        rank = int((norms > norm).sum()) + 1  # 1 = the largest; ties share the better rank
+        rows.append({
+            "feature": table["feature"][i] or f"column {int(table['column'][i])}",
+            "column": int(table["column"][i]),
+            "document_frequency": int(df[i]),
+            "weight_norm": norm,
+            "norm_rank": rank,
+            "norm_percentile": float((norms < norm).sum() / n) if n else math.nan,
+            "max_weight": float(table["max_weight"][i]),
+            "max_weight_label": table["max_weight_label"][i],
+            "documents": documents.get(int(table["column"][i]), []),
+        })
+    return rows
+
+
+def key_numbers(table: dict, rare_df: int = RARE_DF, top: int = 100) -> dict:
+    """A few headline numbers contrasting rare (df <= ``rare_df``) and common features.
+
+    ``rare_share`` (of features), ``rare_update_share`` (of total ``sum |Δw|``; NaN
+    without statistics), ``rare_median_norm`` and ``common_median_norm`` (median weight
+    norm of rare features and of features in more than 8 documents), ``rare_in_top``
+    (how many of the ``top`` largest weight norms belong to rare features) and ``top``.
+    """
+    df = table["document_frequency"]
+    norms = table["weight_norm"]
+    used = df >= 1
+    rare = used & (df <= rare_df)
+    common = df > 8
+    updates = table["abs_update_sum"]
+    total = float(np.nansum(updates[used])) if np.isfinite(updates).any() else math.nan
+    top = min(top, int(used.sum()))
+    order = np.lexsort((table["column"], -norms))[:top]
+    return {
+        "features": int(used.sum()),
+        "rare_df": rare_df,
+        "rare_features": int(rare.sum()),
+        "rare_share": float(rare.sum() / max(1, used.sum())),
+        "rare_update_share": float(np.nansum(updates[rare]) / total) if total > 0 else math.nan,
+        "rare_median_norm": float(np.median(norms[rare])) if rare.any() else math.nan,
+        "common_median_norm": float(np.median(norms[common])) if common.any() else math.nan,
+        "rare_in_top": int(rare[order].sum()),
+        "top": top,
+    }
+
+
+def check_label(model: Model, label: str | None) -> str | None:
+    """``label`` when the model knows it; ConfigError naming ``--label`` otherwise."""
+    if label is not None and label not in model.labels:
+        raise ConfigError("--label", label, f"not a label of this model; choose one of {', '.join(model.labels)}")
+    return label

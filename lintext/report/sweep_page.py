@@ -1,0 +1,135 @@
+"""``sweep.html``: the table of a sweep, its stop metric against the learning rate, and every run's
+learning curve, in the report's layout.
+
+The sweep table's columns are declared here once (:data:`SWEEP_COLUMNS`, :data:`SHOWN_COLUMNS`)
+and read by the CSV file, the terminal and this page, so the three use the same headers.
+Markers mean one thing on every page (:mod:`lintext.report.figures`): a ring is a best epoch,
+a star the best run, a cross a divergence.
+"""
+
+from __future__ import annotations
+
+import math
+from html import escape
+
+import numpy as np
+
+from . import figures
+from .layout import figure_block, fmt, page, section, table
+
+# Every column of sweep.csv, in order; the terminal and the page show SHOWN_COLUMNS.
+SWEEP_COLUMNS = ("run", "optimizer", "learning_rate", "status", "stop_metric", "stop_value", "dev_accuracy",
+                 "dev_macro_f1", "dev_loss", "best_epoch", "epochs_run", "diverged_epoch", "seconds", "cpu_seconds")
+SHOWN_COLUMNS = ("optimizer", "learning_rate", "status", "dev_loss", "dev_accuracy", "dev_macro_f1", "best_epoch",
+                 "epochs_run", "seconds")
+TEXT_COLUMNS = ("optimizer", "status", "stop_metric")
+METRIC_NAMES = {"dev-loss": "dev loss", "accuracy": "dev accuracy", "macro-f1": "dev macro-F1"}
+METRIC_KEYS = {"dev-loss": "dev_loss", "accuracy": "dev_accuracy", "macro-f1": "dev_macro_f1"}
+
+
+def cell(row: dict, column: str) -> str:
+    """One cell of the sweep table as the terminal and the page show it."""
+    value = row[column]
+    if column == "learning_rate":
+        return f"{value:g}"
+    if column in ("seconds", "cpu_seconds"):
+        return f"{value:.1f}"
+    return fmt(value) if value is not None else ""
+
+
+def sweep_page(result) -> str:
+    """The page of a :class:`lintext.tuning.sweep.SweepResult`."""
+    metric = result.stop_metric
+    data = result.settings.get("data", {})
+    rows = [[escape(cell(row, c)) for c in SHOWN_COLUMNS] for row in result.rows]
+    numeric = {i for i, c in enumerate(SHOWN_COLUMNS) if c not in TEXT_COLUMNS}
+    best = "" if result.best is None else (f" The best run is <b>{escape(result.rows[result.best]['optimizer'])} at "
+                                            f"{result.rows[result.best]['learning_rate']:g}</b>; its model is in "
+                                            "<code>best/</code>.")
+    intro = (f"<p>{len(result.rows)} runs on {escape(str(data.get('train', '')))} "
+             f"({fmt(data.get('train_documents'))} documents; dev: {escape(str(data.get('dev', '')))}, "
+             f"{fmt(data.get('dev_documents'))} documents), ranked by {METRIC_NAMES[metric]}.{best}</p>")
+    sections = [
+        section("runs", "Runs", intro + table(list(SHOWN_COLUMNS), rows, numeric)),
+        section("rates", f"{METRIC_NAMES[metric].capitalize()} against the learning rate", figure_block(
+            figures.render(_metric_figure, "sr", "Stop metric against the learning rate", result),
+            "One line per optimizer; the star is the best run, crosses on the bottom edge are runs that diverged.",
+            "No run has a dev value to plot.")),
+        section("curves", "Learning curves", figure_block(
+            figures.render(_curves_figure, "sc", "Dev loss per epoch, per run", result),
+            "Dev loss per epoch of every run, one panel per optimizer, lighter colours for larger learning rates; "
+            "a ring marks each run's best epoch, a cross the epoch at which a run diverged.",
+            "No run has a dev loss to plot.")),
+    ]
+    nav = [("runs", "Runs"), ("rates", "Learning rates"), ("curves", "Learning curves")]
+    return page("Sweep", escape(f"{len(result.rows)} runs, ranked by {METRIC_NAMES[metric]}"), nav, sections)
+
+
+def _metric_figure(result):
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    metric = result.stop_metric
+    optimizers = result.settings.get("optimizers") or list(dict.fromkeys(r["optimizer"] for r in result.rows))
+    rates = sorted({r["learning_rate"] for r in result.rows})
+    fig, (ax,) = figures.new_figure(7.5, 4.0)  # x is log10(rate) on a linear axis: works up to float64's largest rate
+    for k, name in enumerate(optimizers):
+        colour = figures.SERIES[k % len(figures.SERIES)]
+        runs = [r for r in result.rows if r["optimizer"] == name]
+        ok = [r for r in runs if r["stop_value"] is not None]
+        ax.plot([math.log10(r["learning_rate"]) for r in ok], [r["stop_value"] for r in ok], "o-", ms=4, color=colour,
+                label=name)
+        bad = [math.log10(r["learning_rate"]) for r in runs if r["diverged_epoch"] is not None]
+        if bad:  # drawn at the bottom edge: a diverged run has no dev value
+            ax.plot(bad, [0.03] * len(bad), color=colour, transform=ax.get_xaxis_transform(), clip_on=False,
+                    ls="none", label=f"{name}: diverged", **figures.DIVERGED)
+    if result.best is not None:
+        best = result.rows[result.best]
+        ax.plot([math.log10(best["learning_rate"])], [best["stop_value"]], ls="none", label="best run", **figures.BEST_RUN)
+    ax.set_xlim(math.log10(rates[0]) - 0.3, math.log10(rates[-1]) + 0.3)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.xaxis.set_major_formatter(FuncFormatter(_rate_tick))
+    ax.set_xlabel("learning rate (log scale)")
+    ax.set_ylabel(f"{METRIC_NAMES[metric]} at the best epoch")
+    ax.legend()
+    return fig
+
+
+def _rate_tick(exponent, _pos=None) -> str:
+    """The learning rate at ``log10(rate) = exponent``: 0.01, 1, 100, and 1e+06 beyond four decades."""
+    return f"{10.0 ** exponent:g}" if abs(exponent) <= 4 else f"1e{exponent:+.0f}"
+
+
+def _curves_figure(result):
+    from matplotlib import colormaps
+    from matplotlib.ticker import FuncFormatter
+
+    optimizers = result.settings.get("optimizers") or list(dict.fromkeys(r["optimizer"] for r in result.rows))
+    if not any(h.get("dev_loss") is not None for hist in result.histories for h in hist):
+        return None
+    rates = sorted({r["learning_rate"] for r in result.rows})
+    fig, axes = figures.new_figure(3.6 * len(optimizers) + 0.6, 3.4, len(optimizers), sharey=True)
+    shades = {rate: colormaps["viridis"](0.9 * i / max(1, len(rates) - 1)) for i, rate in enumerate(rates)}
+    positive = all(h["dev_loss"] > 0 for hist in result.histories for h in hist if h.get("dev_loss") is not None)
+    for ax, name in zip(axes, optimizers):
+        for row, hist in zip(result.rows, result.histories):
+            if row["optimizer"] != name:
+                continue
+            epochs = [h["epoch"] for h in hist]
+            values = [np.nan if h.get("dev_loss") is None else h["dev_loss"] for h in hist]
+            colour = shades[row["learning_rate"]]
+            ax.plot(epochs, values, "-", color=colour, label=f"{row['learning_rate']:g}")
+            if row["diverged_epoch"] is not None:
+                ax.plot([row["diverged_epoch"]], [values[-1] if values else np.nan], color=colour, ls="none",
+                        **figures.DIVERGED)
+            elif row["best_epoch"]:
+                ax.plot([row["best_epoch"]], [values[row["best_epoch"] - 1]], color=colour, ls="none",
+                        **figures.BEST_EPOCH)
+        ax.set_title(name)
+        ax.set_xlabel("epoch")
+        if positive:
+            ax.set_yscale("log")
+            for axis in (ax.yaxis.set_major_formatter, ax.yaxis.set_minor_formatter):
+                axis(FuncFormatter(lambda v, _: f"{v:g}"))
+    axes[0].set_ylabel("dev loss")
+    axes[-1].legend(title="learning rate")
+    return fig

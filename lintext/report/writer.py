@@ -1,0 +1,131 @@
+"""Writing the report: ``features.csv`` and ``report.html`` for one model, and the comparison page."""
+
+from __future__ import annotations
+
+import csv
+import os
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import ConfigError, LinTextError
+from ..files import atomic_file, csv_value
+from ..model import Model, open_model
+from .pages import comparison_page, report_page
+from .stats import bin_label, feature_table
+
+CSV_COLUMNS = ("column", "feature", "document_frequency", "frequency_bin", "update_count", "abs_update_sum",
+               "weight_norm", "max_weight", "max_weight_label", "effective_step")
+
+def write_features_csv(table: dict, path: str | os.PathLike) -> Path:
+    """Write a :func:`feature_table` as CSV (header :data:`CSV_COLUMNS`; missing numbers are empty cells).
+
+    Floats are written with ``repr`` (they read back bit for bit); the frequency bin is
+    its label (``"3–4"``). The file is written to a temporary path and renamed into place.
+    """
+    def write(fh):
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(CSV_COLUMNS)
+        n = len(table["column"])
+        for i in range(n):
+            row = []
+            for name in CSV_COLUMNS:
+                value = table[name][i]
+                if name == "frequency_bin":
+                    value = bin_label(int(value)) if value >= 0 else ""
+                row.append(csv_value(value))
+            writer.writerow(row)
+
+    return atomic_file(Path(path), write)
+
+
+def report_html(model: Model, top: int = 10, rare_rows: int = 15, title: str | None = None, table: dict | None = None) -> str:
+    """The HTML report of ``model`` as a string (see :func:`write_report`)."""
+    _check_top(top, rare_rows)
+    return report_page(model, feature_table(model) if table is None else table, top=top, rare_rows=rare_rows, title=title)
+
+
+def write_report(model: Model, folder: str | os.PathLike, top: int = 10, rare_rows: int = 15, title: str | None = None) -> dict:
+    """Write ``features.csv`` and ``report.html`` for ``model`` into ``folder``.
+
+    Parameters
+    ----------
+    model : a trained :class:`~lintext.model.Model` (from training or :func:`~lintext.load_model`).
+    folder : any directory (created if missing): the model directory, or the temporary
+        directory given to :meth:`Model.save`'s ``extra`` callback.
+    top : features shown per label.
+    rare_rows : rows of the rare-but-heavy table.
+    title : page title (default: ``"Report: <optimizer> on <training file>"``).
+
+    Returns
+    -------
+    dict with the paths written, ``{"features": Path, "report": Path}``.
+
+    Notes
+    -----
+    Each file is written to a temporary file beside it and renamed into place. The page
+    degrades gracefully: without a dev set, without update statistics, with NaN effective
+    steps (L-BFGS), with the hinge loss or without ``info["explain"]`` the matching figure
+    or column is replaced by a one-line note.
+    """
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise LinTextError(f"{folder}: exists and is not a directory")
+    table = feature_table(model)
+    html = report_html(model, top=top, rare_rows=rare_rows, title=title, table=table)
+    features = write_features_csv(table, folder / "features.csv")
+    report = atomic_file(folder / "report.html", lambda fh: fh.write(html), newline="\n")
+    return {"features": features, "report": report}
+
+
+def comparison_html(models: list, names: list | None = None, title: str | None = None) -> str:
+    """One HTML page comparing ``models`` (see :func:`write_comparison`)."""
+    if len(models) < 1:
+        raise ConfigError("MODEL_DIR", "", "give at least one model to compare")
+    names = list(names) if names else [f"model {i + 1}" for i in range(len(models))]
+    if len(names) != len(models):
+        raise ConfigError("--name", names, f"give one name per model ({len(models)})")
+    return comparison_page([(n, m, feature_table(m)) for n, m in zip(names, models)], title=title)
+
+
+def write_comparison(model_dirs: list, out: str | os.PathLike, names: list | None = None, title: str | None = None) -> Path:
+    """Load model directories and write one page comparing them.
+
+    Parameters
+    ----------
+    model_dirs : model directories (or already loaded :class:`~lintext.model.Model` objects).
+    out : the HTML file to write (atomically).
+    names : one display name per model (default: the directory names, made unique).
+
+    Returns
+    -------
+    Path of the page written. The page shows each model's frequency-versus-update curve
+    (median per frequency bin) and its learning curves on shared axes, a summary table and
+    per-bin tables side by side.
+    """
+    models, default_names = [], []
+    for item in model_dirs:
+        if isinstance(item, Model):
+            models.append(item)
+            default_names.append(f"model {len(models)}")
+        else:
+            models.append(open_model(item))
+            default_names.append(Path(item).resolve().name)
+    html = comparison_html(models, names or _unique(default_names), title=title)
+    return atomic_file(Path(out), lambda fh: fh.write(html), newline="\n")
+
+
+def _check_top(top: int, rare_rows: int) -> None:
+    if top < 1:
+        raise ConfigError("--top", top, "must be at least 1")
+    if rare_rows < 1:
+        raise ConfigError("--rare-rows", rare_rows, "must be at least 1")
+
+
+def _unique(names: list) -> list:
+    seen: dict = {}
+    out = []
+    for name in names:
+        seen[name] = seen.get(name, 0) + 1
+        out.append(name if seen[name] == 1 else f"{name} ({seen[name]})")
+    return out

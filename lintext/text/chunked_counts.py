@@ -1,0 +1,331 @@
+"""Chunked counting: word and character n-gram counts over contiguous chunks of
+texts in worker processes, merged so that the matrix, vocabulary and document
+frequencies equal one scikit-learn ``CountVectorizer`` pass bit for bit.
+Used by :class:`lintext.features.Featurizer` when ``n_jobs > 1``.
+"""
+
+from __future__ import annotations
+
+from array import array
+from collections import defaultdict
+from itertools import chain, repeat
+from numbers import Integral
+
+import numpy as np
+import scipy.sparse as sp
+from joblib import Parallel
+from sklearn.feature_extraction.text import CountVectorizer
+
+from ..errors import ConfigError
+
+
+def df_arg(value):
+    """scikit-learn reads an int as a count and a float as a share of documents."""
+    if isinstance(value, float) and value.is_integer() and value > 1:
+        return int(value)
+    return value
+
+
+# ------------------------------------------------------------ chunked counting
+#
+# fit_transform with n_jobs > 1 splits the texts into contiguous chunks, counts
+# each chunk in a worker process, and merges the chunks so that the result is
+# the one scikit-learn's CountVectorizer gives in a single pass: same columns in
+# the same (sorted) order, same counts, same document-frequency limits, same
+# max_features tie-breaking.
+#
+# Word n-grams travel as integers, not strings.  Tokens of the default pattern
+# (two or more word characters) contain no character at or below the space, so
+# sorting the strings "a", "a b", "ab" equals sorting the token tuples (a,),
+# (a, b), (ab,) position by position, a shorter tuple before its extensions.
+# With tokens ranked 1..U in sorted order and 0 for "no token", the tuple
+# (t1, ..., tk) padded with zeros to length hi is the integer key
+# sum(t_j * base**(hi - j)), base = U + 1, and integer order is feature order.
+# A worker ranks its own tokens; the merge maps local ranks to global ranks
+# (an increasing map, so each chunk's sorted keys stay sorted) and only
+# integer sorts and np.searchsorted touch the n-grams; n-gram strings are built
+# once, for the kept features.  Character n-grams, and word n-grams whose keys
+# would not fit 64 bits, are merged as sorted string lists.
+
+_KEY_LIMIT = int(np.iinfo(np.int64).max)
+
+
+class _TokenRank(dict):
+    """Token -> rank; unknown tokens give -1 (transform)."""
+
+    def __missing__(self, key):
+        return -1
+
+
+def run_parallel(tasks, jobs: int) -> list:
+    return Parallel(n_jobs=jobs, backend="loky")(tasks)
+
+
+def split_contiguous(texts: list, parts: int) -> list[list]:
+    bounds = np.linspace(0, len(texts), parts + 1).astype(np.int64).tolist()
+    return [texts[a:b] for a, b in zip(bounds[:-1], bounds[1:])]
+
+
+def _word_tokenizer(lowercase: bool):
+    """scikit-learn's word analysis before n-grams: decode, preprocess, tokenize."""
+    vec = CountVectorizer(lowercase=lowercase)
+    decode, preprocess, tokenize = vec.decode, vec.build_preprocessor(), vec.build_tokenizer()
+    return lambda doc: tokenize(preprocess(decode(doc)))
+
+
+def _analyzed_ids(texts, analyze, lookup):
+    """Feature ids of every document, concatenated, and the number per document."""
+    ids, lengths = array("q"), array("q")
+    extend, push = ids.extend, lengths.append
+    for doc in texts:
+        features = analyze(doc)
+        push(len(features))
+        extend(map(lookup, features))
+    return np.frombuffer(ids, dtype=np.int64), np.frombuffer(lengths, dtype=np.int64)
+
+
+def _growing_vocabulary():
+    vocabulary = defaultdict()
+    vocabulary.default_factory = vocabulary.__len__  # a new feature gets the next id
+    return vocabulary
+
+
+def _sorted_vocabulary(vocabulary) -> tuple[list[str], np.ndarray]:
+    """Names sorted as Python sorts strings, and the sorted position of each id."""
+    names = list(vocabulary)
+    order = sorted(range(len(names)), key=names.__getitem__)
+    rank = np.empty(len(names), dtype=np.int64)
+    rank[order] = np.arange(len(names))
+    return [names[i] for i in order], rank
+
+
+def ngram_keys(ranks, lengths, ngram_range, base) -> tuple[np.ndarray, np.ndarray]:
+    """Key and document of every n-gram occurrence; ``ranks`` are 0-based, -1 for unknown tokens."""
+    lo, hi = ngram_range
+    n_tokens = ranks.size
+    doc = np.repeat(np.arange(lengths.size, dtype=np.int32), lengths)
+    room = np.repeat(np.cumsum(lengths), lengths) - np.arange(n_tokens)  # tokens left in the document
+    digits = np.concatenate([ranks + 1, np.zeros(hi, dtype=np.int64)])
+    unknown = None
+    if n_tokens and ranks.min() < 0:
+        unknown = np.concatenate([[0], np.cumsum(ranks < 0), np.zeros(hi, dtype=np.int64)])
+    keys, rows = [], []
+    for n in range(lo, hi + 1):
+        if n == 1 and unknown is None:  # every position starts a unigram
+            key, row = digits[:n_tokens], doc
+        else:
+            at = np.flatnonzero(room >= n)
+            if unknown is not None:
+                at = at[unknown[at + n] == unknown[at]]
+            key, row = digits[at], doc[at]
+            for j in range(1, n):
+                key = key * base + digits[at + j]
+        keys.append(key * base ** (hi - n) if hi > n else key)
+        rows.append(row)
+    return np.concatenate(keys), np.concatenate(rows)
+
+
+def _unique_inverse(values, inverse=True):
+    """Sorted distinct values and each value's position among them (np.unique through one
+    argsort; np.unique itself is several times slower here on large int64 arrays)."""
+    if not inverse:
+        ordered = np.sort(values)
+    else:
+        order = np.argsort(values)
+        ordered = values[order]
+    first = np.ones(ordered.size, dtype=bool)
+    np.not_equal(ordered[1:], ordered[:-1], out=first[1:])
+    if not inverse:
+        return ordered[first], None
+    where = np.empty(values.size, dtype=np.int64)
+    where[order] = np.cumsum(first) - 1
+    return ordered[first], where
+
+
+def _csr(rows, cols, shape) -> sp.csr_matrix:
+    """Counts of (row, column) pairs as CSR with sorted column indices."""
+    X = sp.csr_matrix((np.ones(rows.size, dtype=np.int32), (rows, cols)), shape=shape)
+    X.sum_duplicates()
+    return X
+
+
+def count_word_chunk(texts, lowercase, ngram_range):
+    """Worker: (sorted tokens, sorted n-gram keys, counts) of one chunk; ``None`` if keys overflow."""
+    vocabulary = _growing_vocabulary()
+    ids, lengths = _analyzed_ids(texts, _word_tokenizer(lowercase), vocabulary.__getitem__)
+    tokens, rank = _sorted_vocabulary(vocabulary)
+    base = len(tokens) + 1
+    if base ** ngram_range[1] > _KEY_LIMIT:
+        return None
+    keys, rows = ngram_keys(rank[ids], lengths, ngram_range, base)
+    feature_keys, cols = _unique_inverse(keys)
+    return tokens, feature_keys, _csr(rows, cols, (lengths.size, feature_keys.size))
+
+
+def count_string_chunk(texts, analyzer, ngram_range, lowercase):
+    """Worker: (sorted feature names, counts) of one chunk with scikit-learn's analyzer."""
+    analyze = CountVectorizer(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=lowercase).build_analyzer()
+    vocabulary = _growing_vocabulary()
+    ids, lengths = _analyzed_ids(texts, analyze, vocabulary.__getitem__)
+    names, rank = _sorted_vocabulary(vocabulary)
+    rows = np.repeat(np.arange(lengths.size, dtype=np.int64), lengths)
+    # one newline-joined string pickles far faster than a list (features hold no newline)
+    return "\n".join(names), _csr(rows, rank[ids], (lengths.size, len(names)))
+
+
+def _merge_sorted_names(lists) -> tuple[list[str], list[np.ndarray]]:
+    """Union of sorted string lists, sorted, and where each list's entries land in it."""
+    flat = list(chain.from_iterable(lists))
+    order = sorted(range(len(flat)), key=flat.__getitem__)  # a merge of sorted runs
+    ordered = np.fromiter(map(flat.__getitem__, order), dtype=object, count=len(flat))
+    first = np.ones(len(flat), dtype=bool)
+    first[1:] = ordered[1:] != ordered[:-1]
+    where = np.empty(len(flat), dtype=np.int64)
+    where[order] = np.cumsum(first) - 1
+    return ordered[first].tolist(), np.split(where, np.cumsum([len(x) for x in lists])[:-1])
+
+
+def _stack_remapped(mats, colmaps, n_cols) -> sp.csr_matrix:
+    """Chunks stacked row-wise, chunk columns renumbered (increasing maps keep indices sorted)."""
+    offsets = np.cumsum([0] + [m.nnz for m in mats])
+    indptr = np.concatenate([[0]] + [m.indptr[1:].astype(np.int64) + o for m, o in zip(mats, offsets)])
+    index_dtype = np.int32 if max(n_cols, offsets[-1]) < 2**31 else np.int64
+    indices = np.concatenate([cmap[m.indices] for m, cmap in zip(mats, colmaps)]).astype(index_dtype)
+    data = np.concatenate([m.data for m in mats])
+    return sp.csr_matrix((data, indices, indptr.astype(index_dtype)), shape=(len(indptr) - 1, n_cols))
+
+
+def merge_string_chunks(results) -> tuple[list[str], sp.csr_matrix]:
+    names, maps = _merge_sorted_names([r[0].split("\n") if r[0] else [] for r in results])
+    return names, _stack_remapped([r[1] for r in results], maps, len(names))
+
+
+def merge_word_chunks(results, ngram_range):
+    """(global sorted tokens, base, sorted n-gram keys, counts); ``None`` if keys overflow."""
+    hi = ngram_range[1]
+    tokens, maps = _merge_sorted_names([r[0] for r in results])
+    base = len(tokens) + 1
+    if base**hi > _KEY_LIMIT:
+        return None
+    global_keys = []
+    for (local_tokens, keys, _), rank_map in zip(results, maps):
+        local_base = len(local_tokens) + 1
+        digit_map = np.concatenate([[0], rank_map + 1])
+        rekeyed = np.zeros_like(keys)
+        for j in range(hi):
+            rekeyed = rekeyed * base + digit_map[keys // local_base ** (hi - 1 - j) % local_base]
+        global_keys.append(rekeyed)
+    all_keys = _unique_inverse(np.concatenate(global_keys), inverse=False)[0]
+    colmaps = [np.searchsorted(all_keys, k) for k in global_keys]
+    return tokens, base, all_keys, _stack_remapped([r[2] for r in results], colmaps, all_keys.size)
+
+
+def key_names(keys, tokens, base, ngram_range) -> list[str]:
+    """Feature names of n-gram keys: tokens joined by single spaces, as scikit-learn writes them.
+
+    Built as one string of pieces cut at newlines (tokens hold no whitespace),
+    which allocates far less than joining every name separately.
+    """
+    hi = ngram_range[1]
+    if not keys.size:
+        return []
+    digits = np.empty((keys.size, hi), dtype=np.int64)
+    rest = keys.copy()
+    for j in range(hi - 1, -1, -1):
+        digits[:, j] = rest % base
+        rest //= base
+    # digit 0 (no token) maps to "", the last position carries the newline
+    first = [""] + ([t + "\n" for t in tokens] if hi == 1 else tokens)
+    middle = [""] + [" " + t for t in tokens]
+    last = ["\n"] + [" " + t + "\n" for t in tokens]
+    tables = [first] + [middle] * (hi - 2) + ([last] if hi > 1 else [])
+    pieces = np.empty((keys.size, hi), dtype=object)
+    for j, table in enumerate(tables):
+        pieces[:, j] = np.array(table, dtype=object)[digits[:, j]]
+    names = "".join(pieces.ravel().tolist()).split("\n")
+    names.pop()  # after the last newline
+    return names
+
+
+def kept_columns(counts, n_docs, cfg) -> tuple[np.ndarray, np.ndarray]:
+    """Columns kept by min_df / max_df / max_features exactly as ``CountVectorizer._limit_features``
+    keeps them (same float64 term totals, same argsort), and every column's document frequency."""
+    n_cols = counts.shape[1]
+    if not n_cols:
+        raise ConfigError("--min-df", cfg.min_df, "no features left (empty vocabulary; the texts hold no tokens)")
+    df = np.bincount(counts.indices, minlength=n_cols)
+    lo, hi = df_arg(cfg.min_df), df_arg(cfg.max_df)
+    max_count = hi if isinstance(hi, Integral) else hi * n_docs
+    min_count = lo if isinstance(lo, Integral) else lo * n_docs
+    if max_count < min_count:
+        raise ConfigError("--min-df", cfg.min_df, "no features left (max_df corresponds to < documents than min_df)")
+    mask = (df <= max_count) & (df >= min_count)
+    if cfg.max_features is not None and mask.sum() > cfg.max_features:
+        totals = np.bincount(counts.indices, weights=counts.data.astype(np.float64), minlength=n_cols)
+        best = (-totals[mask]).argsort()[: cfg.max_features]
+        limited = np.zeros(n_cols, dtype=bool)
+        limited[np.flatnonzero(mask)[best]] = True
+        mask = limited
+    kept = np.flatnonzero(mask)
+    if not kept.size:
+        raise ConfigError("--min-df", cfg.min_df, "no features left (after pruning, no terms remain)")
+    return kept, df
+
+
+def select_columns(X: sp.csr_matrix, kept: np.ndarray) -> sp.csr_matrix:
+    if kept.size == X.shape[1]:
+        return X
+    new = np.full(X.shape[1], -1, dtype=np.int64)
+    new[kept] = np.arange(kept.size)
+    col = new[X.indices]
+    keep = col >= 0
+    indptr = np.concatenate([[0], np.cumsum(keep)])[X.indptr]
+    return sp.csr_matrix((X.data[keep], col[keep].astype(X.indices.dtype), indptr), shape=(X.shape[0], kept.size))
+
+
+def word_index_from_names(names, ngram_range):
+    """(tokens, base, sorted keys, columns) rebuilt from word feature names; ``False`` if keys overflow."""
+    lo, hi = ngram_range
+    flat = " ".join(names).split(" ")  # one split for all names: far fewer calls than one per name
+    length = np.fromiter(map(str.count, names, repeat(" ")), dtype=np.int64, count=len(names)) + 1
+    tokens = sorted(set(flat))
+    base = len(tokens) + 1
+    if base**hi > _KEY_LIMIT:
+        return False
+    rank = dict(zip(tokens, range(1, base)))
+    ids = np.fromiter(map(rank.__getitem__, flat), dtype=np.int64, count=len(flat))
+    starts = np.cumsum(length) - length
+    keys, columns = [], []
+    for n in range(lo, hi + 1):  # names of other lengths can never match a text
+        sel = np.flatnonzero(length == n)
+        if sel.size:
+            digits = ids[starts[sel][:, None] + np.arange(n)]
+            key = digits[:, 0]
+            for j in range(1, n):
+                key = key * base + digits[:, j]
+            keys.append(key * base ** (hi - n))
+            columns.append(sel)
+    keys = np.concatenate(keys) if keys else np.zeros(0, dtype=np.int64)
+    columns = np.concatenate(columns) if columns else np.zeros(0, dtype=np.int64)
+    order = np.argsort(keys, kind="stable")
+    return tokens, base, keys[order], columns[order]
+
+
+def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, columns, n_cols):
+    """Worker: word counts of one chunk over a fitted vocabulary given as sorted n-gram keys."""
+    rank = _TokenRank(zip(tokens, range(len(tokens))))
+    ids, lengths = _analyzed_ids(texts, _word_tokenizer(lowercase), rank.__getitem__)
+    found, rows = ngram_keys(ids, lengths, ngram_range, base)
+    if not keys.size:
+        return sp.csr_matrix((lengths.size, n_cols))
+    at = np.searchsorted(keys, found)
+    at[at == keys.size] = 0
+    hit = keys[at] == found
+    cols = at[hit] if columns is None else columns[at[hit]]
+    return _csr(rows[hit], cols, (lengths.size, n_cols))
+
+
+def transform_string_chunk(texts, analyzer, ngram_range, lowercase, names):
+    vocabulary = dict(zip(names, range(len(names))))
+    vec = CountVectorizer(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=lowercase, vocabulary=vocabulary)
+    return vec.transform(texts).tocsr()

@@ -1,0 +1,402 @@
+"""Featurizer: text to a sparse CSR matrix, built on scikit-learn's vectorizers.
+
+Word n-grams always; character n-grams inside word boundaries when asked
+(``char_wb``); a learned vocabulary or a fixed number of hashed columns.
+Weighting (``binary``, ``count``, ``log`` = 1 + ln count, ``tfidf``) and
+unit-length rows follow. The inverse document frequency is scikit-learn's
+smoothed form ``idf = ln((1 + n) / (1 + df)) + 1`` (``TfidfTransformer`` with
+``smooth_idf=True``): the textbook ``log(N / df)`` (Manning, Raghavan & Schütze
+2008, ch. 6) with one extra document containing every term, plus one so that a
+term in every document keeps a non-zero weight.
+
+The fitted state is the configuration, the document count and a vocabulary
+table (feature, column, document frequency): JSON plus TSV, no pickle.
+Character n-gram features are written ``[gram]`` so they never collide with
+word features, whose tokens cannot contain brackets.
+
+With ``n_jobs > 1`` and at least ``PARALLEL_MIN_DOCS`` texts, fitting and
+transforming run over contiguous chunks in worker processes (joblib, loky
+backend) and the chunks are merged exactly: the matrix, the vocabulary and the
+document frequencies are those of one scikit-learn pass, bit for bit (see
+"chunked counting" below for how).
+"""
+
+from __future__ import annotations
+
+import os
+from numbers import Integral
+from pathlib import Path
+
+import numpy as np
+import scipy.sparse as sp
+from joblib import cpu_count, delayed
+from sklearn.feature_extraction.text import CountVectorizer, HashingVectorizer
+from sklearn.preprocessing import normalize as _normalize_rows
+
+from .chunked_counts import (
+    count_string_chunk, count_word_chunk, df_arg, kept_columns, key_names, merge_string_chunks, merge_word_chunks,
+    run_parallel, select_columns, split_contiguous, transform_string_chunk, transform_word_chunk,
+    word_index_from_names,
+)
+from ..errors import ConfigError, ModelFileError
+from .config import FeaturizerConfig, parse_range  # noqa: F401  (parse_range: re-exported)
+
+VOCAB_HEADER = "feature\tcolumn\tdocument_frequency"
+OLD_VOCAB_HEADERS = ("feature\tindex\tdocument_frequency",)  # read, never written
+PARALLEL_MIN_DOCS = 20_000  # fewer texts than this: one pass in this process, even with n_jobs > 1
+
+
+class Featurizer:
+    """Maps texts to a CSR matrix; fitted on training texts only.
+
+    Parameters
+    ----------
+    config : the options; ``FeaturizerConfig()`` when ``None``.
+    n_jobs : worker processes for :meth:`fit_transform` and :meth:`transform`;
+        ``0`` or ``-1`` means one per core.  It never changes the result, so it
+        is not part of the configuration written with a model.
+    parallel_min_docs : inputs with fewer texts are featurized in one pass in
+        this process; ``None`` reads the module constant ``PARALLEL_MIN_DOCS``.
+
+    Attributes after fitting: ``n_features``, ``feature_names`` (``None`` in
+    hashing mode), ``document_frequency`` (training documents containing each
+    column), ``n_documents``, ``used_columns`` (hashing mode: columns kept).
+    """
+
+    def __init__(self, config: FeaturizerConfig | None = None, n_jobs: int = 1, parallel_min_docs: int | None = None):
+        self.config = (config or FeaturizerConfig()).validate()
+        if isinstance(n_jobs, bool) or not isinstance(n_jobs, Integral) or n_jobs < -1:
+            raise ConfigError("n_jobs", n_jobs, "a number of processes >= 1, or 0 / -1 for one per core")
+        self.n_jobs = int(n_jobs)
+        self.parallel_min_docs = parallel_min_docs
+        self.feature_names: list[str] | None = None
+        self.document_frequency: np.ndarray | None = None
+        self.n_documents = 0
+        self.used_columns: np.ndarray | None = None
+        self._reset()
+
+    def _reset(self):
+        self._word = self._char = None  # CountVectorizers for single-pass transform, built on demand
+        self._n_word = 0  # word columns come first, character columns after them
+        self._word_index = None  # (tokens, base, sorted keys, columns) for chunked transform; see ngram_keys
+
+    # ------------------------------------------------------------ fitting
+
+    def fit_transform(self, texts) -> sp.csr_matrix:
+        cfg = self.config
+        texts = list(texts)
+        self.n_documents = len(texts)
+        self._reset()
+        jobs = self._jobs_for(len(texts))
+        if cfg.hashing:
+            counts = self._hashed_counts(texts, jobs)
+            df = np.bincount(counts.indices, minlength=counts.shape[1])
+            keep = _df_mask(df, len(texts), cfg.min_df, cfg.max_df)
+            self.used_columns = np.flatnonzero(keep)
+            counts = counts @ sp.diags(keep.astype(counts.dtype))
+            counts.eliminate_zeros()
+            self.document_frequency = df * keep
+        elif jobs > 1:
+            counts = self._fit_chunked(texts, jobs)
+        else:
+            counts = self._fit_single_pass(texts)
+        return self._weight(counts)
+
+    def fit(self, texts) -> "Featurizer":
+        self.fit_transform(texts)
+        return self
+
+    def transform(self, texts) -> sp.csr_matrix:
+        if self.document_frequency is None:
+            raise RuntimeError("Featurizer is not fitted")
+        texts = list(texts)
+        jobs = self._jobs_for(len(texts))
+        if self.config.hashing:
+            counts = self._hashed_counts(texts, jobs)
+            mask = np.zeros(counts.shape[1], dtype=counts.dtype)
+            mask[self.used_columns] = 1
+            counts = counts @ sp.diags(mask)
+            counts.eliminate_zeros()
+        elif jobs > 1:
+            counts = self._transform_chunked(texts, jobs)
+        else:
+            word, char = self._fixed_vectorizers()
+            blocks = [word.transform(texts)]
+            if char is not None:
+                blocks.append(char.transform(texts))
+            counts = sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0].tocsr()
+        return self._weight(counts)
+
+    @property
+    def n_features(self) -> int:
+        if self.config.hashing:
+            return self.config.hash_space
+        return len(self.feature_names or ())
+
+    def idf(self) -> np.ndarray:
+        """scikit-learn's smoothed inverse document frequency per column."""
+        return np.log((1.0 + self.n_documents) / (1.0 + self.document_frequency)) + 1.0
+
+    # ------------------------------------------------------------ internals
+
+    def _jobs_for(self, n_texts: int) -> int:
+        jobs = cpu_count() if self.n_jobs in (0, -1) else self.n_jobs
+        threshold = PARALLEL_MIN_DOCS if self.parallel_min_docs is None else self.parallel_min_docs
+        return min(jobs, n_texts) if jobs > 1 and n_texts >= max(threshold, 2) else 1
+
+    def _vectorizer(self, analyzer, ngram_range, vocabulary=None):
+        cfg = self.config
+        kwargs = dict(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=cfg.lowercase, dtype=np.float64)
+        if vocabulary is not None:
+            return CountVectorizer(vocabulary=vocabulary, **kwargs)
+        return CountVectorizer(
+            min_df=df_arg(cfg.min_df), max_df=df_arg(cfg.max_df), max_features=cfg.max_features, **kwargs
+        )
+
+    def _fit_single_pass(self, texts) -> sp.csr_matrix:
+        """scikit-learn's CountVectorizer over all texts in this process (the reference)."""
+        cfg = self.config
+        blocks, names = [], []
+        self._word = self._vectorizer("word", cfg.ngrams)
+        blocks.append(_fit_vectorizer(self._word, texts, cfg.min_df))
+        names += _names_by_column(self._word.vocabulary_)
+        self._n_word = len(names)
+        if cfg.char_ngrams is not None:
+            self._char = self._vectorizer("char_wb", cfg.char_ngrams)
+            blocks.append(_fit_vectorizer(self._char, texts, cfg.min_df))
+            names += [f"[{g}]" for g in _names_by_column(self._char.vocabulary_)]
+        counts = sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0].tocsr()
+        self.feature_names = names
+        self.document_frequency = np.bincount(counts.indices, minlength=counts.shape[1])
+        return counts
+
+    def _fit_chunked(self, texts, jobs) -> sp.csr_matrix:
+        """Count contiguous chunks in worker processes, then merge exactly (see "chunked counting")."""
+        cfg = self.config
+        chunks = split_contiguous(texts, jobs)
+        tasks = [delayed(count_word_chunk)(c, cfg.lowercase, cfg.ngrams) for c in chunks]
+        if cfg.char_ngrams is not None:
+            tasks += [delayed(count_string_chunk)(c, "char_wb", cfg.char_ngrams, cfg.lowercase) for c in chunks]
+        results = run_parallel(tasks, jobs)
+        word_results, char_results = results[: len(chunks)], results[len(chunks) :]
+        merged = None if any(r is None for r in word_results) else merge_word_chunks(word_results, cfg.ngrams)
+        if merged is None:  # n-gram keys would overflow 64 bits: count strings instead
+            retry = [delayed(count_string_chunk)(c, "word", cfg.ngrams, cfg.lowercase) for c in chunks]
+            names, counts = merge_string_chunks(run_parallel(retry, jobs))
+            kept, df = kept_columns(counts, len(texts), cfg)
+            word_names = [names[j] for j in kept.tolist()]
+        else:
+            tokens, base, keys, counts = merged
+            kept, df = kept_columns(counts, len(texts), cfg)
+            self._word_index = (tokens, base, keys[kept], None)
+            word_names = key_names(keys[kept], tokens, base, cfg.ngrams)
+        blocks, names, dfs = [select_columns(counts, kept)], word_names, [df[kept]]
+        self._n_word = len(word_names)
+        if char_results:
+            char_names, counts = merge_string_chunks(char_results)
+            kept, df = kept_columns(counts, len(texts), cfg)
+            blocks.append(select_columns(counts, kept))
+            names = names + [f"[{char_names[j]}]" for j in kept.tolist()]
+            dfs.append(df[kept])
+        self.feature_names = names
+        self.document_frequency = np.concatenate(dfs)
+        return sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0]
+
+    def _transform_chunked(self, texts, jobs) -> sp.csr_matrix:
+        cfg = self.config
+        chunks = split_contiguous(texts, jobs)
+        word_names = self.feature_names[: self._n_word]
+        if self._word_index is None:
+            self._word_index = word_index_from_names(word_names, cfg.ngrams)
+        if self._word_index is not False:
+            tokens, base, keys, columns = self._word_index
+            tasks = [
+                delayed(transform_word_chunk)(c, cfg.lowercase, cfg.ngrams, tokens, base, keys, columns, self._n_word)
+                for c in chunks
+            ]
+        else:
+            tasks = [delayed(transform_string_chunk)(c, "word", cfg.ngrams, cfg.lowercase, word_names) for c in chunks]
+        if cfg.char_ngrams is not None:
+            char_names = [n[1:-1] for n in self.feature_names[self._n_word :]]
+            tasks += [delayed(transform_string_chunk)(c, "char_wb", cfg.char_ngrams, cfg.lowercase, char_names) for c in chunks]
+        results = run_parallel(tasks, jobs)
+        blocks = [sp.vstack(results[: len(chunks)], format="csr")]
+        if cfg.char_ngrams is not None:
+            blocks.append(sp.vstack(results[len(chunks) :], format="csr"))
+        return sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0]
+
+    def _fixed_vectorizers(self):
+        """Word and character CountVectorizers over the fitted vocabulary, built on first use."""
+        cfg = self.config
+        if self._word is None:
+            words = self.feature_names[: self._n_word]
+            self._word = self._vectorizer("word", cfg.ngrams, dict(zip(words, range(len(words)))))
+        if self._char is None and cfg.char_ngrams is not None:
+            grams = [n[1:-1] for n in self.feature_names[self._n_word :]]
+            self._char = self._vectorizer("char_wb", cfg.char_ngrams, dict(zip(grams, range(len(grams)))))
+        return self._word, self._char
+
+    def _hashed_counts(self, texts, jobs: int = 1) -> sp.csr_matrix:
+        if jobs > 1:
+            parts = run_parallel([delayed(_count_hashed)(c, self.config) for c in split_contiguous(texts, jobs)], jobs)
+            return sp.vstack(parts, format="csr")
+        return _count_hashed(texts, self.config)
+
+    def _weight(self, counts: sp.csr_matrix) -> sp.csr_matrix:
+        X = counts.astype(np.float64).tocsr()
+        X.sum_duplicates()  # sorted, so fit and transform sum in the same order
+        w = self.config.weighting
+        if w == "binary":
+            X.data[:] = 1.0
+        elif w == "log":
+            X.data = 1.0 + np.log(X.data)
+        elif w == "tfidf":
+            X = (X @ sp.diags(self.idf())).tocsr()
+        if self.config.normalize:
+            X = _normalize_rows(X, norm="l2", copy=False)
+        X.sort_indices()
+        return X
+
+    # ------------------------------------------------------------ persistence
+
+    def to_json(self) -> dict:
+        return {"config": self.config.to_json(), "n_documents": int(self.n_documents)}
+
+    def vocabulary_rows(self):
+        """(feature, column, document frequency) for every column the model uses."""
+        df = self.document_frequency
+        if self.config.hashing:
+            return [("", int(j), int(df[j])) for j in self.used_columns]
+        return [(name, j, int(df[j])) for j, name in enumerate(self.feature_names)]
+
+    def save_vocabulary(self, path: str | os.PathLike) -> None:
+        with open(path, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(VOCAB_HEADER + "\n")
+            for name, j, df in self.vocabulary_rows():
+                fh.write(f"{_escape(name)}\t{j}\t{df}\n")
+
+    @classmethod
+    def load(cls, state: dict, vocabulary_path: str | os.PathLike, n_jobs: int = 1) -> "Featurizer":
+        """Rebuild a fitted featurizer from :meth:`to_json` and a vocabulary TSV."""
+        try:
+            config = FeaturizerConfig.from_json(state["config"])
+            n_documents = int(state["n_documents"])
+        except (KeyError, TypeError, ValueError) as exc:
+            raise ModelFileError(vocabulary_path, f"featurizer state is incomplete or wrong: {exc}") from None
+        names, index, df = _read_vocabulary(Path(vocabulary_path))
+        self = cls(config, n_jobs=n_jobs)
+        self.n_documents = n_documents
+        if config.hashing:
+            width = config.hash_space
+            if len(index) and (index.min() < 0 or index.max() >= width):
+                raise ModelFileError(vocabulary_path, f"column index outside 0..{width - 1}")
+            self.used_columns = np.sort(index)
+            self.document_frequency = np.zeros(width, dtype=np.int64)
+            self.document_frequency[index] = df
+            return self
+        if not np.array_equal(np.sort(index), np.arange(len(index))):
+            raise ModelFileError(vocabulary_path, "columns must be 0..n-1, each once")
+        order = np.argsort(index)
+        self.feature_names = [names[i] for i in order]
+        self.document_frequency = df[order]
+        is_char = np.array([n.startswith("[") and n.endswith("]") and len(n) > 2 for n in self.feature_names], bool)
+        n_word = int((~is_char).sum())
+        if is_char[:n_word].any() or (config.char_ngrams is None and n_word != len(index)):
+            raise ModelFileError(vocabulary_path, "word and character features are out of order")
+        self._n_word = n_word
+        return self
+
+
+def _fit_vectorizer(vectorizer, texts, min_df) -> sp.csr_matrix:
+    try:
+        return vectorizer.fit_transform(texts)
+    except ValueError as exc:  # empty vocabulary after pruning
+        raise ConfigError("--min-df", min_df, f"no features left ({exc})") from None
+
+
+def _names_by_column(vocabulary: dict) -> list[str]:
+    """Feature names in column order (what ``get_feature_names_out`` gives, without sorting again)."""
+    names = np.empty(len(vocabulary), dtype=object)
+    names[np.fromiter(vocabulary.values(), dtype=np.int64, count=len(vocabulary))] = np.fromiter(
+        vocabulary, dtype=object, count=len(vocabulary)
+    )
+    return names.tolist()
+
+
+def _count_hashed(texts, cfg: FeaturizerConfig) -> sp.csr_matrix:
+    """Hashed word (+ character) counts; stateless, so chunks can be counted anywhere."""
+    common = dict(n_features=cfg.hash_space, alternate_sign=False, norm=None, lowercase=cfg.lowercase)
+    counts = HashingVectorizer(analyzer="word", ngram_range=cfg.ngrams, **common).transform(texts)
+    if cfg.char_ngrams is not None:
+        counts = counts + HashingVectorizer(analyzer="char_wb", ngram_range=cfg.char_ngrams, **common).transform(texts)
+    counts = counts.tocsr()
+    counts.sort_indices()
+    return counts
+
+
+def _df_mask(df, n_docs, min_df, max_df) -> np.ndarray:
+    """Columns kept by the document-frequency limits, read as scikit-learn reads them."""
+    lo, hi = (v if isinstance(v, int) else v * n_docs for v in (df_arg(min_df), df_arg(max_df)))
+    return (df >= max(lo, 1)) & (df <= hi)
+
+
+_ESCAPES = {"\\": "\\\\", "\t": "\\t", "\n": "\\n", "\r": "\\r"}
+_UNESCAPES = {"\\": "\\", "t": "\t", "n": "\n", "r": "\r"}
+
+
+def _escape(text: str) -> str:
+    return "".join(_ESCAPES.get(c, c) for c in text)
+
+
+def _unescape(text: str) -> str:
+    if "\\" not in text:
+        return text
+    out, i = [], 0
+    while i < len(text):
+        c = text[i]
+        if c == "\\" and i + 1 < len(text):
+            out.append(_UNESCAPES.get(text[i + 1], text[i + 1]))
+            i += 2
+        else:
+            out.append(c)
+            i += 1
+    return "".join(out)
+
+
+def _read_vocabulary(path: Path):
+    if not path.is_file():
+        raise ModelFileError(path, "vocabulary file is missing")
+    names, index, df = [], [], []
+    with open(path, encoding="utf-8", newline="\n") as fh:
+        header = fh.readline().rstrip("\n")
+        if header != VOCAB_HEADER and header not in OLD_VOCAB_HEADERS:
+            raise ModelFileError(path, f"line 1: expected the header {VOCAB_HEADER!r}")
+        for number, line in enumerate(fh, start=2):
+            parts = line.rstrip("\n").split("\t")
+            if len(parts) != 3:
+                raise ModelFileError(path, f"line {number}: expected 3 tab-separated fields, found {len(parts)}")
+            try:
+                index.append(int(parts[1]))
+                df.append(int(parts[2]))
+            except ValueError:
+                raise ModelFileError(path, f"line {number}: column and document frequency must be integers") from None
+            names.append(_unescape(parts[0]))
+    return names, np.asarray(index, dtype=np.int64), np.asarray(df, dtype=np.int64)
+
+
+def corpus_stats(corpus, config: FeaturizerConfig | None = None) -> dict:
+    """Documents, label counts and the feature space a configuration gives on ``corpus``."""
+    featurizer = Featurizer(config)
+    X = featurizer.fit_transform(corpus.texts)
+    df = featurizer.document_frequency
+    used = df[df > 0]
+    return {
+        "documents": len(corpus),
+        "labels": corpus.label_counts(),
+        "features": int(used.size),
+        "columns": int(featurizer.n_features),
+        "nonzeros": int(X.nnz),
+        "nonzeros_per_document": float(X.nnz / max(1, X.shape[0])),
+        "share_df1": float((used == 1).mean()) if used.size else 0.0,
+        "share_df2": float((used == 2).mean()) if used.size else 0.0,
+    }

@@ -1,0 +1,281 @@
+"""Step-size sweeps and optimizer comparisons, run in parallel through joblib.
+
+:func:`sweep` reads and featurizes the data once, writes the CSR arrays of the training
+and dev matrices and the label arrays with ``np.save`` into a temporary folder, and
+trains one model per (optimizer, learning rate) pair of the grid in worker processes
+(joblib's ``loky`` backend). Each worker opens the arrays with
+``np.load(..., mmap_mode="r")``: the operating system shares the pages between the
+processes and nothing is copied per worker. The compiled kernels accept the read-only
+arrays as they are, and :func:`lintext.train.fit` keeps them when they already have the
+training dtype (with ``dtype="float32"`` every run converts ``data`` into its own copy).
+Workers run with one thread each for numba and the BLAS libraries (joblib's
+``inner_max_num_threads=1`` sets ``NUMBA_NUM_THREADS=1``, ``OMP_NUM_THREADS=1`` and the like
+in them), so processes do not oversubscribe the cores.
+
+Runs are dispatched smallest learning rate first (those tend to run every epoch), so the
+long runs start early and the short ones fill the gaps at the end.
+
+Determinism: every run is seeded by the shared options (``seed``), never by the worker
+that ran it, so a sweep with one job and with several give the same weights and the same
+table except the ``seconds``. A run that diverges is recorded with the status
+``diverged at epoch N`` and never stops the sweep.
+
+The best run has the best value of ``stop_metric`` at its best epoch (lowest dev loss,
+or highest dev accuracy / macro-F1); ties go to the earlier run in grid order
+(optimizers as listed, each over the learning rates as listed). Its model is rebuilt in
+the parent process from the weights its worker saved, with the same ``info`` as a model
+from :func:`lintext.pipeline.train`.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import os
+import tempfile
+import time
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import scipy.sparse as sp
+from joblib import Parallel, cpu_count, delayed, parallel_config
+
+from ..engine.optimizers import STEP_OPTIMIZERS
+from ..engine.options import TrainOptions
+from ..engine.trainer import fit
+from ..errors import ConfigError, DivergenceError, LinTextError
+from ..files import atomic_directory, atomic_file, write_json
+from ..model import Model
+from ..pipeline import PreparedData, Progress, evaluate, prepare_data
+from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
+from ..text.featurizer import FeaturizerConfig
+from ..text.readers import ReaderOptions
+
+DEFAULT_OPTIMIZERS = ("sgd", "adagrad", "adam")
+DEFAULT_LEARNING_RATES = (1e-4, 1e-3, 1e-2, 1e-1, 1.0)
+TIMINGS = ("seconds", "cpu_seconds")  # the only columns that differ between repeated sweeps
+_SHARED = ("data", "indices", "indptr", "y", "dev_data", "dev_indices", "dev_indptr", "dev_y")
+
+
+# --------------------------------------------------------------------------- grid
+
+
+def parse_optimizers(text: str, option: str = "--optimizers") -> tuple[str, ...]:
+    """``"sgd,adam"`` -> ``("sgd", "adam")``; a name without a learning rate is a ConfigError."""
+    names = [part.strip().lower() for part in str(text).split(",")]
+    for name in names:
+        if name not in STEP_OPTIMIZERS:
+            raise ConfigError(option, name, f"expected a comma-separated list of {', '.join(STEP_OPTIMIZERS)}")
+    return _distinct(option, names)
+
+
+def parse_learning_rates(text: str, option: str = "--learning-rates") -> tuple[float, ...]:
+    """``"1e-3,0.1"`` -> ``(0.001, 0.1)``; anything but positive finite numbers is a ConfigError."""
+    rates = []
+    for part in str(text).split(","):
+        try:
+            value = float(part)
+        except ValueError:
+            raise ConfigError(option, part.strip(), "expected a comma-separated list of numbers, e.g. 1e-3,0.01,0.1") from None
+        if not (math.isfinite(value) and value > 0):
+            raise ConfigError(option, part.strip(), "learning rates must be positive and finite")
+        rates.append(value)
+    return _distinct(option, rates)
+
+
+def _distinct(option, values) -> tuple:
+    for i, value in enumerate(values):
+        if value in values[:i]:
+            raise ConfigError(option, value, "listed twice")
+    return tuple(values)
+
+
+def make_grid(options: TrainOptions, optimizers, learning_rates) -> list[TrainOptions]:
+    """The runs of a sweep: ``options`` with each optimizer and learning rate, validated."""
+    optimizers = parse_optimizers(optimizers) if isinstance(optimizers, str) else parse_optimizers(",".join(optimizers))
+    rates = parse_learning_rates(learning_rates if isinstance(learning_rates, str) else ",".join(map(repr, learning_rates)))
+    grid = [replace(options, optimizer=name, learning_rate=rate) for name in optimizers for rate in rates]
+    for run in grid:
+        run.validate()
+    return grid
+
+
+# --------------------------------------------------------------------------- shared arrays
+
+
+def share_arrays(folder: Path, X, y, X_dev, y_dev) -> dict:
+    """Write the arrays workers open memory-mapped; returns the matrix shapes."""
+    arrays = dict(data=X.data, indices=X.indices, indptr=X.indptr, y=y, dev_data=X_dev.data,
+                  dev_indices=X_dev.indices, dev_indptr=X_dev.indptr, dev_y=y_dev)
+    for name, array in arrays.items():
+        np.save(folder / f"{name}.npy", np.ascontiguousarray(array), allow_pickle=False)
+    return {"X": X.shape, "X_dev": X_dev.shape}
+
+
+def open_shared(folder: Path, shapes: dict):
+    """Open the shared arrays read-only and memory-mapped: ``(X, y, X_dev, y_dev)``, no copies."""
+    a = {name: np.load(folder / f"{name}.npy", mmap_mode="r", allow_pickle=False) for name in _SHARED}
+    X = sp.csr_matrix((a["data"], a["indices"], a["indptr"]), shape=shapes["X"], copy=False)
+    X_dev = sp.csr_matrix((a["dev_data"], a["dev_indices"], a["dev_indptr"]), shape=shapes["X_dev"], copy=False)
+    return X, a["y"], X_dev, a["dev_y"]
+
+
+# --------------------------------------------------------------------------- runs
+
+
+def _run(folder: str, shapes: dict, index: int, options: TrainOptions, n_labels: int) -> tuple[dict, list[dict]]:
+    """Train run ``index`` in a worker; save its weights as ``run-<index>.npz`` in ``folder``."""
+    folder = Path(folder)
+    X, y, X_dev, y_dev = open_shared(folder, shapes)
+    seen: list[dict] = []
+    started, cpu = time.perf_counter(), time.process_time()
+    try:
+        result = fit(X, y, n_labels, X_dev, y_dev, options,
+                     progress=lambda row: seen.append({k: v for k, v in row.items() if k != "epochs"}))
+    except DivergenceError as exc:
+        return run_row(index, options, seen, None, f"diverged at epoch {exc.epoch}", time.perf_counter() - started,
+                       time.process_time() - cpu, diverged_epoch=exc.epoch), seen
+    except LinTextError as exc:  # re-raised with a message only: typed errors need not unpickle
+        raise LinTextError(str(exc)) from None
+    seconds, cpu = time.perf_counter() - started, time.process_time() - cpu
+    np.savez(folder / f"run-{index}.npz", coef=result.coef, intercept=result.intercept,
+             **{f"stat_{k}": v for k, v in result.feature_stats.items()})
+    status = "stopped early" if result.stopped_early else "finished"
+    return run_row(index, options, result.history, result.best_epoch, status, seconds, cpu), result.history
+
+
+def run_row(index: int, options: TrainOptions, history: list[dict], best_epoch: int | None, status: str,
+            seconds: float, cpu_seconds: float, diverged_epoch: int | None = None) -> dict:
+    """One row of the sweep table; metrics are those of the epoch whose weights were kept.
+
+    ``seconds`` is the run's wall time, ``cpu_seconds`` the processor time of its process
+    (the two differ when other processes compete for the cores).
+    """
+    best = history[best_epoch - 1] if best_epoch else {}
+    return {
+        "run": index, "optimizer": options.optimizer, "learning_rate": float(options.learning_rate), "status": status,
+        "stop_metric": options.stop_metric, "stop_value": best.get(METRIC_KEYS[options.stop_metric]),
+        "dev_accuracy": best.get("dev_accuracy"), "dev_macro_f1": best.get("dev_macro_f1"), "dev_loss": best.get("dev_loss"),
+        "best_epoch": best_epoch, "epochs_run": diverged_epoch or len(history), "diverged_epoch": diverged_epoch,
+        "seconds": round(seconds, 4), "cpu_seconds": round(cpu_seconds, 4),
+    }
+
+
+def best_run(rows: list[dict], stop_metric: str) -> int | None:
+    """Index of the best row by ``stop_metric`` (first in grid order on ties); None when every run diverged."""
+    sign = 1.0 if stop_metric == "dev-loss" else -1.0
+    scored = [(sign * r["stop_value"], r["run"]) for r in rows if r["stop_value"] is not None and math.isfinite(r["stop_value"])]
+    return min(scored)[1] if scored else None
+
+
+@dataclass
+class SweepResult:
+    """Rows of the sweep table (grid order), per-run histories, the best run and its model."""
+
+    rows: list[dict]
+    histories: list[list[dict]]
+    stop_metric: str
+    best: int | None
+    model: Model | None
+    settings: dict = field(default_factory=dict)
+
+    def to_json(self) -> dict:
+        return {**self.settings, "stop_metric": self.stop_metric, "best_run": self.best,
+                "runs": [{**row, "history": hist} for row, hist in zip(self.rows, self.histories)]}
+
+    def save(self, path: str | os.PathLike) -> Path:
+        """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model) atomically."""
+        def fill(tmp: Path):
+            atomic_file(tmp / "sweep.csv", self._write_csv)
+            write_json(tmp / "sweep.json", self.to_json())
+            atomic_file(tmp / "sweep.html", lambda fh: fh.write(sweep_page(self)))
+            if self.model is not None:
+                self.model.save(tmp / "best")
+
+        return atomic_directory(Path(path), fill)
+
+    def _write_csv(self, fh) -> None:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(SWEEP_COLUMNS)
+        for row in self.rows:
+            writer.writerow(["" if row[c] is None else (repr(row[c]) if isinstance(row[c], float) else row[c]) for c in SWEEP_COLUMNS])
+
+
+def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
+          options: TrainOptions | dict | None = None, optimizers=DEFAULT_OPTIMIZERS,
+          learning_rates=DEFAULT_LEARNING_RATES, workers: int | None = None, reader: ReaderOptions | None = None,
+          n_jobs: int = 1, progress: Progress | None = None) -> SweepResult:
+    """Train every (optimizer, learning rate) pair with early stopping, in parallel, and pick the best.
+
+    Parameters
+    ----------
+    data, dev, dev_fraction, featurizer, reader, n_jobs
+        As for :func:`lintext.pipeline.build_model`; a dev set is required (it ranks the runs).
+    options : TrainOptions or dict
+        Shared options of every run; ``optimizer`` and ``learning_rate`` are replaced by the grid.
+    optimizers, learning_rates : sequences, or comma-separated strings
+    workers : int or None
+        Runs at once, each in its own process (``None`` or 0: one per core). Runs are
+        deterministic whatever the number.
+    progress : callable
+        Called with ``{"stage": "reading" | "featurizing" | "run", ...}``; a ``run`` event
+        carries ``done``, ``total`` and the finished run's ``row``.
+
+    Returns
+    -------
+    SweepResult
+    """
+    report = progress or (lambda event: None)
+    base = TrainOptions.from_mapping(options).validate()
+    grid = make_grid(base, optimizers, learning_rates)
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 0):
+        raise ConfigError("--workers", workers, "must be a whole number of processes (0 = one per core)")
+    jobs = min(len(grid), workers or cpu_count())
+    if dev is None and not dev_fraction:
+        raise ConfigError("--dev-fraction", dev_fraction, "a sweep ranks its runs on dev data; give --dev FILE or a fraction above 0")
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report)
+    n_labels = len(prepared.labels)
+    started = time.perf_counter()
+    found: dict[int, tuple[dict, list]] = {}
+    with tempfile.TemporaryDirectory(prefix="lintext-sweep-") as folder:
+        shapes = share_arrays(Path(folder), prepared.X, prepared.y, prepared.X_dev, prepared.y_dev)
+        # Smallest learning rates first: they tend to run every epoch, so the long runs start
+        # early and the short ones fill the gaps at the end (longest-first scheduling).
+        order = sorted(range(len(grid)), key=lambda i: (grid[i].learning_rate, i))
+        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels) for i in order)
+        with parallel_config(backend="loky", inner_max_num_threads=1):
+            for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
+                found[row["run"]] = (row, history)
+                report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
+        rows = [found[i][0] for i in range(len(grid))]
+        histories = [found[i][1] for i in range(len(grid))]
+        best = best_run(rows, base.stop_metric)
+        model = None
+        if best is not None:
+            with np.load(Path(folder) / f"run-{best}.npz", allow_pickle=False) as saved:
+                weights = {k: saved[k] for k in saved.files}
+            model = _best_model(prepared, grid[best], rows[best], histories[best], weights, len(grid))
+    settings = {
+        "optimizers": list(dict.fromkeys(r.optimizer for r in grid)),
+        "learning_rates": list(dict.fromkeys(r.learning_rate for r in grid)),
+        "workers": jobs, "parallel_seconds": round(time.perf_counter() - started, 3),
+        "training": base.to_json(), "featurizer": prepared.featurizer.config.to_json(), "data": prepared.description,
+    }
+    return SweepResult(rows, histories, base.stop_metric, best, model, settings)
+
+
+def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, history: list, weights: dict, n_runs: int) -> Model:
+    stats = {k[len("stat_"):]: v for k, v in weights.items() if k.startswith("stat_")}
+    info = {
+        "training": options.to_json(),
+        "best_epoch": int(row["best_epoch"]),
+        "stopped_early": row["status"] == "stopped early",
+        "history": history,
+        "data": dict(prepared.description),
+        "metrics": {},
+        "sweep": {"runs": n_runs, "run": row["run"], "stop_metric": options.stop_metric},
+    }
+    model = Model(prepared.featurizer, weights["coef"], weights["intercept"], prepared.labels, options.loss, info, stats)
+    model.info["metrics"]["dev"] = evaluate(model, prepared.dev_set)
+    return model
