@@ -13,6 +13,8 @@ from lintext.engine.options import TrainOptions
 
 from .conftest import DEMO
 
+pytestmark = pytest.mark.slow  # trains on the demo corpus
+
 
 @pytest.fixture(scope="module")
 def default_model():

@@ -45,6 +45,7 @@ def test_files_and_fields(trained):
     assert header == "feature\tcolumn\tdocument_frequency" and len(rows) == model.featurizer.n_features
 
 
+@pytest.mark.slow
 def test_fresh_process_gives_identical_predictions(trained):
     model, path, texts = trained
     code = (

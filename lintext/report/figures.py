@@ -143,7 +143,7 @@ def _note(ax, text: str):
 
 
 def learning_curves(history: list, best_epoch: int | None, loss_name: str, prefix: str = "lc") -> str | None:
-    """Loss (train, dev), dev accuracy and macro-F1, and the step size in effect, per epoch."""
+    """Loss (train, dev), dev accuracy and macro-F1, and the learning rate in effect, per epoch."""
     return render(_learning_curves, prefix, "Learning curves", history, best_epoch, loss_name)
 
 
@@ -183,8 +183,8 @@ def _learning_curves(history, best_epoch, loss_name):
             ax_lr.set_ylim(0, top * 1.25 if top > 0 else 1.0)
             ax_lr.set_ylabel("learning rate in effect")
     else:
-        _note(ax_lr, "no step size recorded")
-    ax_lr.set_title("Step size")
+        _note(ax_lr, "no learning rate recorded")
+    ax_lr.set_title("Learning rate")
     at = [i for i, e in enumerate(epochs) if e == best_epoch]
     for ax in (ax_loss, ax_metric, ax_lr):
         if not ax.has_data():
@@ -252,8 +252,8 @@ def _frequency_updates(table, bins, sample):
 
 
 def effective_steps(bins: list, prefix: str = "es") -> str | None:
-    """Median effective step size per frequency bin, with interquartile bars."""
-    return render(_effective_steps, prefix, "Effective step size per frequency bin", bins)
+    """Median effective step per frequency bin, with interquartile bars."""
+    return render(_effective_steps, prefix, "Effective step per frequency bin", bins)
 
 
 def _effective_steps(bins):
@@ -273,12 +273,12 @@ def _effective_steps(bins):
     if bottom > 0 and top / bottom > 20:
         ax.set_yscale("log")
         plain_log(ax)
-        ax.set_ylabel("effective step size (log scale)")
+        ax.set_ylabel("effective step (log scale)")
     else:
         ax.set_ylim(0, top * 1.2 if top > 0 else 1.0)  # from zero, so a flat line reads as flat
-        ax.set_ylabel("effective step size")
+        ax.set_ylabel("effective step")
     ax.set_xlabel("document frequency bin (training documents)")
-    ax.set_title("Final per-feature step size, median and interquartile range")
+    ax.set_title("Final effective step per feature, median and interquartile range")
     return fig
 
 
@@ -328,7 +328,7 @@ def compare_frequency(series: list, prefix: str = "cf") -> str | None:
 
     ``series``: list of ``(name, bins)``.
     """
-    return render(_compare_frequency, prefix, "Update magnitude and step size per frequency bin, by model", series)
+    return render(_compare_frequency, prefix, "Update magnitude and effective step per frequency bin, by model", series)
 
 
 def _compare_frequency(series):
@@ -364,16 +364,16 @@ def _compare_frequency(series):
         plain_log(ax_s, "x")
         plain_log(ax_s, "y")
         ax_s.set_xlabel("document frequency in training (log scale)")
-        ax_s.set_ylabel("median effective step size (log scale)")
+        ax_s.set_ylabel("median effective step (log scale)")
         ax_s.legend()
     else:
-        _note(ax_s, "no effective step sizes recorded")
-    ax_s.set_title("Final step size per frequency bin")
+        _note(ax_s, "no effective steps recorded")
+    ax_s.set_title("Final effective step per frequency bin")
     return fig
 
 
 def compare_learning(series: list, prefix: str = "cl") -> str | None:
-    """Train and dev loss, dev accuracy and step size per epoch, one colour per model.
+    """Train and dev loss, dev accuracy and learning rate per epoch, one colour per model.
 
     ``series``: list of ``(name, history, best_epoch, loss_name)``.
     """
@@ -425,8 +425,8 @@ def _compare_learning(series):
         ax_lr.set_ylabel("learning rate in effect (log scale)")
         ax_lr.legend()
     else:
-        _note(ax_lr, "no step size recorded")
-    ax_lr.set_title("Step size")
+        _note(ax_lr, "no learning rate recorded")
+    ax_lr.set_title("Learning rate")
     for ax in (ax_loss, ax_acc, ax_lr):
         if ax.has_data():
             _epoch_axis(ax, all_epochs)

@@ -19,18 +19,19 @@ from .stats import RARE_DF, frequency_bins, key_numbers, rare_heavy, top_feature
 GUIDE = {
     "learning": "Read each panel left to right: train and dev loss should fall together, a dev loss that turns upward while "
                 "the train loss keeps falling marks over-fitting, the dotted line is the best epoch whose weights were kept, "
-                "and the right panel is the step size each epoch used.",
+                "and the right panel is the learning rate each epoch used.",
     "frequency": "Each dot is one feature (a random sample when there are many) placed by how many training documents "
                  "contain it, the line joins the median of each frequency bin and the band holds its middle half, so the "
                  "left panel shows how far each feature's weights travelled and the right one where they ended.",
-    "steps": "Each point is the median final step size of the features in one frequency bin (bars: middle half); a line "
+    "steps": "Each point is the median final effective step of the features in one frequency bin (bars: middle half): the "
+             "learning rate times the optimizer's per-feature scaling, how far one unit of gradient moves a weight; a line "
              "that falls from left to right means the optimizer gives rare features larger steps than frequent ones.",
     "confusion": "Rows are the true labels and columns the predicted ones: the diagonal holds the correct predictions, "
                  "and a dark cell off the diagonal names a pair of labels the model confuses.",
     "compare_frequency": "One line per model, medians per document-frequency bin on shared log axes (band: middle half): "
                          "where a model's line lies higher at the rare end, that optimizer moved rare features further.",
     "compare_learning": "One colour per model on shared axes: solid lines are train loss and dashed dev loss, the stars "
-                        "mark each model's best epoch, and the right panel is the step size in effect.",
+                        "mark each model's best epoch, and the right panel is the learning rate in effect.",
 }
 
 
@@ -69,10 +70,10 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
         f"{why}, and every weight is zero: there is nothing to plot."))
     sections.append(section("frequency", "Frequency and updates", "\n".join(body)))
 
-    steps_missing = (f"{why}, so there are no step sizes to show." if not recorded else
-                     f"The optimizer ({optimizer}) has no per-feature step size (L-BFGS works on the whole "
+    steps_missing = (f"{why}, so there are no effective steps to show." if not recorded else
+                     f"The optimizer ({optimizer}) has no per-feature effective step (L-BFGS works on the whole "
                      "objective at once), so this figure is left out.")
-    sections.append(section("steps", "Effective step size", figure_block(figures.effective_steps(bins), GUIDE["steps"], steps_missing)))
+    sections.append(section("steps", "Effective step per feature", figure_block(figures.effective_steps(bins), GUIDE["steps"], steps_missing)))
     sections.append(section("bins", "Per frequency bin", _bins_table(bins, has_stats, why)))
     sections.append(section("labels", "Strongest features per label", _top_tables(model, table_, top)))
     sections.append(section("rare", "Rare features with large weights", _rare_table(model, table_, rare_rows)))
@@ -89,7 +90,7 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
     sections.append(section("confusion", "Confusion matrix", body))
 
     nav = [("summary", "Summary"), ("learning", "Learning curves"), ("frequency", "Frequency and updates"),
-           ("steps", "Step size"), ("bins", "Bins"), ("labels", "Per label"), ("rare", "Rare features"),
+           ("steps", "Effective step"), ("bins", "Bins"), ("labels", "Per label"), ("rare", "Rare features"),
            ("confusion", "Confusion")]
     return page(title, subtitle, nav, sections)
 
@@ -136,9 +137,13 @@ def _summary(model, info, training, history, data, metrics, table_) -> str:
             number = isinstance(value, (int, float)) and not isinstance(value, bool)
             opt_pairs.append((key.replace("_", " "), fmt(value) if number else escape(str(value))))
             shown.add(key)
-    others = [f"{escape(k)}={escape(str(v))}" for k, v in training.items() if k not in shown and v is not None]
+    # The rest as typed on the command line; a schedule's own numbers only where it uses them.
+    unused = {"threads"} | ({"decay"} if training.get("schedule") not in ("inverse", "inverse-sqrt") else set()) \
+        | ({"plateau_factor"} if training.get("schedule") != "plateau" else set())
+    others = [f"--{escape(k.replace('_', '-'))} {escape(str(v))}" for k, v in training.items()
+              if k not in shown | unused and v is not None]
     if others:
-        opt_pairs.append(("other", ", ".join(others)))
+        opt_pairs.append(("other options", ", ".join(others)))
 
     seconds = sum(float(r.get("seconds") or 0) for r in history)
     outcome = [("epochs run", fmt(len(history))), ("best epoch", fmt(info.get("best_epoch"))),
@@ -226,7 +231,7 @@ def _per_label_table(m: dict, which: str) -> str:
         return ""
     rows = [[escape(name), fmt(v.get("precision"), 3), fmt(v.get("recall"), 3), fmt(v.get("f1"), 3), fmt(v.get("support"))]
             for name, v in per.items()]
-    return f"<h3>Per label, {escape(which)} set</h3>" + table(["label", "precision", "recall", "F1", "support"], rows, {1, 2, 3, 4})
+    return f"<h3>Per label, {escape(which)} set</h3>" + table(["label", "precision", "recall", "F1", "documents"], rows, {1, 2, 3, 4})
 
 
 # ---------------------------------------------------------------- several models

@@ -14,8 +14,8 @@ Vocabulary
 *weight norm*
     the L2 norm of the feature's row of ``coef`` (its weights across labels);
 *effective step*
-    the final per-feature step size of an adaptive rule, mean over labels (NaN for
-    L-BFGS, where there is none).
+    the learning rate times the rule's final per-feature scaling (how far one unit of
+    gradient moves the weight), mean over labels (NaN for L-BFGS, where there is none).
 
 Frequency bins are log-spaced: ``1``, ``2``, ``3–4``, ``5–8``, ``9–16`` … bin ``k >= 1``
 holds ``2^(k-1) < df <= 2^k``; bin 0 holds ``df = 1``.

@@ -18,7 +18,7 @@ With ``n_jobs > 1`` and at least ``PARALLEL_MIN_DOCS`` texts, fitting and
 transforming run over contiguous chunks in worker processes (joblib, loky
 backend) and the chunks are merged exactly: the matrix, the vocabulary and the
 document frequencies are those of one scikit-learn pass, bit for bit (see
-"chunked counting" below for how).
+:mod:`lintext.text.chunked_counts` for how).
 """
 
 from __future__ import annotations
@@ -171,7 +171,7 @@ class Featurizer:
         return counts
 
     def _fit_chunked(self, texts, jobs) -> sp.csr_matrix:
-        """Count contiguous chunks in worker processes, then merge exactly (see "chunked counting")."""
+        """Count contiguous chunks in worker processes, then merge exactly (:mod:`lintext.text.chunked_counts`)."""
         cfg = self.config
         chunks = split_contiguous(texts, jobs)
         tasks = [delayed(count_word_chunk)(c, cfg.lowercase, cfg.ngrams) for c in chunks]

@@ -90,6 +90,40 @@ def test_kernel_matches_numpy_specification(name, loss, batch_size):
     np.testing.assert_allclose(ks.stat_abs_update_sum, stat_abs, rtol=0, atol=1e-10)
 
 
+@pytest.mark.parametrize("l2", [0.0, 0.05], ids=["no-l2", "l2"])
+@pytest.mark.parametrize("name", OPTIMIZERS)
+def test_kernel_matches_specification_through_long_gaps_with_deferred_flush(name, l2):
+    # The path the trainer takes: run_epoch(..., flush=False) every epoch, one kernels.flush at
+    # the end. Rows 0-3 sit out epochs 2 to 5 (orders may leave rows out), so their features miss
+    # more than two epochs of steps: beyond the kernels' table of powers, which is then computed
+    # directly. Oracle: reference_epoch (lintext.engine.reference), which catches up one missed
+    # step at a time; weights, state and statistics must agree.
+    X, y = random_problem(n=24, n_features=40, density=0.08, seed=5)
+    n, n_features = X.shape
+    rule = optim.make_rule(name)
+    code = optim.OPTIMIZERS[name].code
+    hp = optim.kernel_hyperparameters(rule)
+    params_k, ks = np.zeros((n_features + 1, 3)), kernels.KernelState.new(n_features, 3, code)
+    params_r, rs = np.zeros((n_features + 1, 3)), rule.init_state((n_features + 1, 3))
+    last, step = np.zeros(n_features + 1, dtype=np.int64), 0
+    rng = np.random.default_rng(2)
+    for epoch in range(7):
+        order = rng.permutation(n).astype(np.int64)
+        if 1 <= epoch <= 4:
+            order = order[order >= 4]
+        run_epoch(X.indptr, X.indices, X.data, y, order, params_k, ks, loss_code=0, optimizer_code=code,
+                  schedule_code=0, learning_rate=LRS[name], l2=l2, batch_size=2, flush=False, **hp)
+        _, step, _, _ = reference_epoch(X, y, order, params_r, rs, last, step, rule, "softmax", LRS[name],
+                                        "constant", 0.0, l2, 2, True)
+    kernels.flush(params_k, ks, optimizer_code=code, beta1=hp["beta1"], beta2=hp["beta2"], rho=hp["rho"])
+    only_early = np.setdiff1d(X[:4].indices, X[4:].indices)
+    assert only_early.size > 0  # features that really missed the long gap
+    np.testing.assert_allclose(params_k, params_r, rtol=0, atol=1e-10, err_msg=name)
+    for key, arr in rs.items():
+        np.testing.assert_allclose(np.broadcast_to(ks.rule_state(code)[key], arr.shape), arr, rtol=1e-9, atol=1e-12,
+                                   err_msg=f"{name} {key}")
+
+
 @pytest.mark.parametrize("l2", [0.0, 0.05])
 @pytest.mark.parametrize("batch_size", [1, 2])
 @pytest.mark.parametrize("name", ["sgd", "adagrad"])

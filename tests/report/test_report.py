@@ -293,14 +293,14 @@ def assert_offline(html: str):
 def test_report_references_nothing_outside_itself(trained):
     html = (trained["dir"] / "report.html").read_text(encoding="utf-8")
     assert_offline(html)
-    assert html.count('<svg aria-label=') == 4  # learning curves, frequency, step sizes, confusion
+    assert html.count('<svg aria-label=') == 4  # learning curves, frequency, effective steps, confusion
     assert "@media print" in html
 
 
 def test_report_sections_and_numbers(trained):
     model = trained["model"]
     html = (trained["dir"] / "report.html").read_text(encoding="utf-8")
-    for heading in ("Summary", "Learning curves", "Frequency and updates", "Effective step size", "Per frequency bin",
+    for heading in ("Summary", "Learning curves", "Frequency and updates", "Effective step per feature", "Per frequency bin",
                     "Strongest features per label", "Rare features with large weights", "Confusion matrix"):
         assert f"<h2>{heading}</h2>" in html
     assert html.count("<b>How to read:</b>") == 4  # one reading guide per figure
@@ -333,7 +333,7 @@ def test_report_for_lbfgs_and_hinge_without_dev(trained, tmp_path):
     lbfgs = lintext.build_model(trained["train"], dev=trained["dev"], options={"optimizer": "lbfgs", "epochs": 15})
     write_report(lbfgs, tmp_path / "lbfgs")
     html = (tmp_path / "lbfgs" / "report.html").read_text(encoding="utf-8")
-    assert "has no per-feature step size" in html  # effective steps are NaN
+    assert "has no per-feature effective step" in html  # effective steps are NaN
     assert "no gradient-step updates recorded" in html
     hinge = lintext.build_model(trained["train"], dev_fraction=0, options={"loss": "hinge", "optimizer": "sgd", "epochs": 2})
     write_report(hinge, tmp_path / "hinge")
@@ -397,6 +397,7 @@ def assert_rendered(attrs: dict, console: list, html: str, screenshot: Path):
     assert pixels.shape[1] == 1280 and pixels.std() > 0.05  # not a blank page
 
 
+@pytest.mark.slow
 def test_chromium_renders_the_report(trained, tmp_path):
     page = trained["dir"] / "report.html"
     shot = ARTIFACTS / "report.png"
@@ -404,6 +405,7 @@ def test_chromium_renders_the_report(trained, tmp_path):
     assert_rendered(attrs, console, page.read_text(encoding="utf-8"), shot)
 
 
+@pytest.mark.slow
 def test_compare_page_renders(trained, second, tmp_path):
     page = write_comparison([trained["dir"], second], tmp_path / "compare.html")
     html = page.read_text(encoding="utf-8")

@@ -203,6 +203,7 @@ VOCABULARY_CONFIGS = [
 
 
 @pytest.mark.parametrize("config", VOCABULARY_CONFIGS)
+@pytest.mark.slow
 def test_parallel_fit_transform_matches_one_pass(config):
     single, chunked = Featurizer(config), parallel(config)
     X1, X2 = single.fit_transform(TEXTS), chunked.fit_transform(TEXTS)
@@ -230,6 +231,7 @@ def test_parallel_fit_transform_matches_one_pass(config):
         assert csr_arrays_equal(T2, canonical(sp.hstack(refs, format="csr")))
 
 
+@pytest.mark.slow
 def test_parallel_max_features_breaks_ties_as_scikit_learn(monkeypatch):
     texts = make_texts(600, seed=3)
     # pick a limit that cuts through a group of features with equal total counts
@@ -250,6 +252,7 @@ def test_parallel_max_features_breaks_ties_as_scikit_learn(monkeypatch):
     assert g.feature_names == f.feature_names
 
 
+@pytest.mark.slow
 def test_parallel_hashing_matches_one_pass():
     config = FeaturizerConfig(hash_space=1024, char_ngrams=(3, 3), min_df=2)
     single, chunked = Featurizer(config), parallel(config)
@@ -266,6 +269,7 @@ def test_parallel_hashing_matches_one_pass():
     assert np.array_equal(chunked.document_frequency, df * (df >= 2))
 
 
+@pytest.mark.slow
 def test_parallel_transform_after_one_pass_fit_and_round_trip(tmp_path):
     config = FeaturizerConfig(ngrams=(1, 3), char_ngrams=(2, 3), min_df=2)
     single = Featurizer(config).fit(TEXTS)
@@ -279,6 +283,7 @@ def test_parallel_transform_after_one_pass_fit_and_round_trip(tmp_path):
     assert "n_jobs" not in json.dumps(loaded.to_json())
 
 
+@pytest.mark.slow
 def test_parallel_falls_back_to_strings_when_keys_overflow(monkeypatch):
     # n-gram keys are integers below 2**63; with a tiny limit the merge counts strings instead.
     config = FeaturizerConfig(ngrams=(1, 3), min_df=2, weighting="count", normalize=False)
@@ -306,6 +311,7 @@ def test_small_inputs_stay_in_process(monkeypatch):
         Featurizer(config, n_jobs=2).fit(TEXTS)
 
 
+@pytest.mark.slow
 def test_parallel_errors_match_one_pass():
     for config in [FeaturizerConfig(min_df=10_000), FeaturizerConfig(min_df=5, max_df=2)]:
         for f in (Featurizer(config), parallel(config)):

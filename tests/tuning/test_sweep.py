@@ -112,6 +112,7 @@ def test_saved_best_run_is_the_best_row_of_the_table(small_split, tmp_path):
     assert " src=" not in page and "http" not in page.replace("http://www.w3.org", "")  # self-contained
 
 
+@pytest.mark.slow
 def test_two_jobs_give_the_same_sweep_as_one(small_split):
     kwargs = dict(dev=small_split["dev"], optimizers="sgd,adagrad,adam", learning_rates=[0.01, 0.3, OVERFLOW_RATE], options=SMALL)
     one = sweep(small_split["train"], workers=1, **kwargs)
@@ -211,6 +212,7 @@ def run(*args):
     return runner.invoke(app, [str(a) for a in args])
 
 
+@pytest.mark.slow
 def test_cli_sweep_writes_table_page_and_best_model(small_split, tmp_path):
     out = tmp_path / "sweep"
     result = run("sweep", small_split["train"], "--dev", small_split["dev"], "--out", out, "--optimizers", "sgd,adam",
@@ -239,6 +241,7 @@ def test_cli_sweep_bad_list_exits_2_naming_option_and_value(small_split, tmp_pat
     assert not (tmp_path / "x").exists()
 
 
+@pytest.mark.slow
 def test_cli_probe_prints_a_suggestion_and_writes_the_plot(small_split, tmp_path):
     out = tmp_path / "probe"
     result = run("probe", small_split["train"], "--dev", small_split["dev"], "--optimizer", "sgd", "--batch-size", 4,
