@@ -89,15 +89,9 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
 
 def _hashed_ngrams(feat, texts, keep: int) -> dict:
     """Per used column, the ``keep`` training n-grams with the most documents that hash into it."""
-    from sklearn.feature_extraction.text import FeatureHasher, HashingVectorizer
-
     cfg = feat.config
-    analyzers = [("", HashingVectorizer(analyzer="word", ngram_range=cfg.ngrams, lowercase=cfg.lowercase).build_analyzer())]
-    if cfg.char_ngrams is not None:
-        analyzers.append(("char", HashingVectorizer(analyzer="char_wb", ngram_range=cfg.char_ngrams,
-                                                    lowercase=cfg.lowercase).build_analyzer()))
     counts: Counter = Counter()
-    for kind, analyze in analyzers:
+    for kind, analyze in _analyzers(cfg):
         local: Counter = Counter()
         for text in texts:
             local.update(set(analyze(text)))
@@ -107,9 +101,7 @@ def _hashed_ngrams(feat, texts, keep: int) -> dict:
         return {"columns": [], "ngrams": []}
     grams = sorted(counts)  # alphabetical: ties in count go to the earlier text
     width = cfg.hash_space
-    # HashingVectorizer hashes every n-gram with FeatureHasher(input_type="string"); one row per n-gram.
-    hashed = FeatureHasher(n_features=width, input_type="string", alternate_sign=False).transform([[g] for g, _ in grams])
-    column = hashed.indices.astype(np.int64)
+    column = _columns(width, [g for g, _ in grams])
     n_docs = np.array([counts[g] for g in grams], dtype=np.int64)
     used = np.zeros(width, dtype=bool)
     used[np.asarray(feat.used_columns, dtype=np.int64)] = True
@@ -126,6 +118,37 @@ def _hashed_ngrams(feat, texts, keep: int) -> dict:
         ngrams.append([[_display(*grams[i]), int(n_docs[i])] for i in order[start:min(stop, start + keep)]])
         start = stop
     return {"columns": columns, "ngrams": ngrams}
+
+
+def document_ngrams(featurizer, text: str) -> dict:
+    """Hashing mode: column -> the n-grams of ``text`` that hash into it (character n-grams as
+    ``[gram]``), in alphabetical order; the same analyzers and hash as the featurizer."""
+    grams = sorted({(gram, kind) for kind, analyze in _analyzers(featurizer.config) for gram in analyze(text)})
+    out: dict = {}
+    for (gram, kind), c in zip(grams, _columns(featurizer.config.hash_space, [g for g, _ in grams]).tolist()):
+        out.setdefault(int(c), []).append(_display(gram, kind))
+    return out
+
+
+def _analyzers(cfg) -> list:
+    from sklearn.feature_extraction.text import HashingVectorizer
+
+    analyzers = [("", HashingVectorizer(analyzer="word", ngram_range=cfg.ngrams, lowercase=cfg.lowercase).build_analyzer())]
+    if cfg.char_ngrams is not None:
+        analyzers.append(("char", HashingVectorizer(analyzer="char_wb", ngram_range=cfg.char_ngrams,
+                                                    lowercase=cfg.lowercase).build_analyzer()))
+    return analyzers
+
+
+def _columns(width: int, grams: list) -> np.ndarray:
+    """The column of each n-gram: HashingVectorizer hashes every n-gram with
+    FeatureHasher(input_type="string"); one row per n-gram."""
+    from sklearn.feature_extraction.text import FeatureHasher
+
+    if not grams:
+        return np.zeros(0, dtype=np.int64)
+    hashed = FeatureHasher(n_features=width, input_type="string", alternate_sign=False).transform([[g] for g in grams])
+    return hashed.indices.astype(np.int64)
 
 
 def _display(gram: str, kind: str) -> str:

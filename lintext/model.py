@@ -10,6 +10,10 @@ A model directory holds
 - ``feature_stats.npz`` (when trained by lintext's engine): per-feature update
   statistics for the report.
 
+``model.json`` may hold a ``calibration`` section (a temperature fitted on the dev set, see
+:mod:`lintext.confidence`); models written without one still load, and their probabilities
+are the plain softmax of the scores.
+
 It is written to a temporary directory beside the target and renamed into
 place, so a failure or an interrupt never leaves half a model behind and never
 changes a model already at that path.
@@ -26,6 +30,7 @@ from typing import Callable
 import numpy as np
 
 from . import __version__
+from .confidence import probabilities as scaled_softmax
 from .errors import LinTextError, ModelFileError
 from .engine.options import upgrade_training_json
 from .files import atomic_directory, json_default
@@ -48,9 +53,12 @@ class Model:
     info : everything else kept in ``model.json`` (training options, metrics,
         history, best epoch, data description).
     feature_stats : optional per-feature update statistics (arrays of n_features).
+    calibration : optional ``model.json`` ``calibration`` section: ``{"method": "temperature",
+        "temperature": T, ...}`` (see :func:`lintext.confidence.calibration_record`).
     """
 
-    def __init__(self, featurizer, coef, intercept, labels, loss="softmax", info=None, feature_stats=None):
+    def __init__(self, featurizer, coef, intercept, labels, loss="softmax", info=None, feature_stats=None,
+                 calibration=None):
         self.featurizer = featurizer
         self.coef = np.ascontiguousarray(coef)
         self.intercept = np.asarray(intercept)
@@ -58,24 +66,44 @@ class Model:
         self.loss = loss
         self.info = dict(info or {})
         self.feature_stats = feature_stats
+        self.calibration = calibration
 
     # ------------------------------------------------------------ prediction
 
     def scores(self, texts) -> np.ndarray:
         """Scores ``X @ coef + intercept``, one row per text, one column per label."""
-        X = self.featurizer.transform(texts)
-        return np.asarray(X @ self.coef) + self.intercept
+        return self.matrix_scores(self.featurizer.transform(texts))
+
+    def matrix_scores(self, X) -> np.ndarray:
+        """Scores of an already featurized matrix, computed in float64 from the stored weights."""
+        coef = np.asarray(self.coef, dtype=np.float64)
+        return np.asarray(X @ coef) + np.asarray(self.intercept, dtype=np.float64)
 
     def classify(self, texts) -> list[str]:
         """The label of each text (the one with the highest score)."""
         scores = self.scores(texts)
         return [self.labels[j] for j in scores.argmax(axis=1)]
 
+    @property
+    def temperature(self) -> float | None:
+        """The fitted temperature, or ``None`` when the model has no calibration."""
+        return None if self.calibration is None else float(self.calibration["temperature"])
+
+    @property
+    def has_probabilities(self) -> bool:
+        """A softmax model always has probabilities; a hinge model once it is calibrated."""
+        return self.loss == "softmax" or self.calibration is not None
+
     def probabilities(self, texts) -> np.ndarray:
-        """Softmax probabilities, one row per text; only a softmax-loss model has them."""
-        if self.loss != "softmax":
-            raise LinTextError(f"a {self.loss}-loss model gives scores, not probabilities; use scores()")
-        return softmax(self.scores(texts))
+        """Probabilities, one row per text: ``softmax(scores / T)`` with the fitted temperature
+        (``T = 1`` for a softmax model without calibration; an uncalibrated hinge model has none)."""
+        return self.probabilities_of(self.scores(texts))
+
+    def probabilities_of(self, scores: np.ndarray) -> np.ndarray:
+        """:meth:`probabilities` from scores already computed."""
+        if not self.has_probabilities:
+            raise LinTextError(f"a {self.loss}-loss model without calibration gives scores, not probabilities; use scores()")
+        return softmax(scores) if self.calibration is None else scaled_softmax(scores, self.temperature)
 
     # ------------------------------------------------------------ persistence
 
@@ -88,6 +116,7 @@ class Model:
             "n_features": int(self.coef.shape[0]),
             "featurizer": self.featurizer.to_json(),
             **self.info,
+            **({"calibration": self.calibration} if self.calibration is not None else {}),
         }
 
     def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None) -> Path:
@@ -138,10 +167,14 @@ class Model:
         stats = None
         if (folder / "feature_stats.npz").exists():
             stats = _read_npz(folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES}, finite=False, kinds="fi")
-        info = {k: v for k, v in meta.items() if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features"}}
+        calibration = _check_calibration(folder / "model.json", meta.get("calibration"))
+        info = {k: v for k, v in meta.items()
+                if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features", "calibration"}}
         if isinstance(info.get("training"), dict):
             info["training"] = upgrade_training_json(info["training"])
-        return cls(featurizer, arrays["coef"], arrays["intercept"], labels, loss, info, stats)
+        model = cls(featurizer, arrays["coef"], arrays["intercept"], labels, loss, info, stats, calibration)
+        model.path = folder  # named by errors about the directory
+        return model
 
 
 def softmax(scores: np.ndarray) -> np.ndarray:
@@ -157,6 +190,18 @@ def open_model(path: str | os.PathLike) -> Model:
 
 
 # ---------------------------------------------------------------- reading
+
+
+def _check_calibration(path: Path, section):
+    """The ``calibration`` section, or ``None`` when absent (models written before it existed)."""
+    if section is None:
+        return None
+    if not isinstance(section, dict) or section.get("method") != "temperature":
+        raise ModelFileError(path, "field 'calibration' must be an object with 'method': 'temperature'")
+    t = section.get("temperature")
+    if isinstance(t, bool) or not isinstance(t, (int, float)) or not (np.isfinite(t) and t > 0):
+        raise ModelFileError(path, f"field 'calibration.temperature' must be a positive finite number, not {t!r}")
+    return section
 
 
 def _read_json(path: Path) -> dict:

@@ -16,11 +16,13 @@ import numpy as np
 import scipy.sparse as sp
 from sklearn.metrics import accuracy_score, confusion_matrix, f1_score, precision_recall_fscore_support
 
+from . import confidence
 from .engine.options import TrainOptions
 from .engine.trainer import fit
 from .errors import ConfigError
 from .evidence import training_extras
-from .model import Model, softmax
+from .explanation import dev_errors, require_calibration
+from .model import Model
 from .text.featurizer import Featurizer, FeaturizerConfig
 from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus, split_dev
 
@@ -152,8 +154,7 @@ def build_model(
     train_set = prep.train_set
     model = Model(prep.featurizer, result.coef, result.intercept, prep.labels, topts.loss, info, result.feature_stats)
     model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
-    if prep.dev_set is not None:
-        model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
+    finish_with_dev(model, prep)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
         test_set = _corpus(test, reader, min_labels=1)
@@ -162,16 +163,46 @@ def build_model(
     return model
 
 
+def finish_with_dev(model: Model, prep: PreparedData) -> None:
+    """After training, while the dev set is at hand: fit the temperature on it
+    (:func:`lintext.confidence.calibration_record`), record its most confident errors
+    (:func:`lintext.explanation.dev_errors`) and its metrics. Nothing without a dev set."""
+    if prep.dev_set is None:
+        return
+    model.calibration = confidence.calibration_record(model.matrix_scores(prep.X_dev), prep.y_dev)
+    model.info["dev_errors"] = dev_errors(model, prep.dev_set, prep.X_dev)
+    model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
+
+
+def check_probability(option: str, value) -> float:
+    """A probability threshold strictly between 0 and 1 (``--min-probability``, ``--target-accuracy``)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        raise ConfigError(option, value, "must be a probability above 0 and below 1")
+    return float(value)
+
+
 def evaluate(model: Model, data: str | os.PathLike | Corpus, reader: ReaderOptions | None = None,
-             summary_only: bool = False) -> dict:
-    """Accuracy, macro- and weighted-F1, per-label precision/recall/F1/support and the confusion matrix.
+             summary_only: bool = False, target_accuracy: float | None = None) -> dict:
+    """Accuracy, macro- and weighted-F1, per-label precision/recall/F1/support and the confusion
+    matrix; then calibration and routing numbers.
 
     Labels in ``data`` that the model does not know raise InputError naming the record.
-    Metrics are scikit-learn's (``sklearn.metrics``).
+    Metrics are scikit-learn's (``sklearn.metrics``). Unless ``summary_only``, also (see
+    :mod:`lintext.confidence`, 15 equal-width bins): ``ece`` and ``nll`` of the model's
+    probabilities (``None`` for a hinge model without calibration), ``ece_uncalibrated`` and
+    ``nll_uncalibrated`` of the plain softmax of the scores, ``temperature`` (``None`` without
+    calibration), ``reliability`` (``calibrated`` and ``uncalibrated`` bin tables) and
+    ``coverage`` (documents decided and correct per threshold of the model's probability).
+    ``target_accuracy`` (needs a calibrated model) adds ``target``, the lowest threshold whose
+    decided documents reach that accuracy.
     """
+    if target_accuracy is not None:
+        check_probability("--target-accuracy", target_accuracy)
+        require_calibration(model, "--target-accuracy")
     corpus = _corpus(data, reader, min_labels=1)
     y_true = corpus.label_indices(model.labels)
-    y_pred = model.scores(corpus.texts).argmax(axis=1)
+    scores = model.scores(corpus.texts)
+    y_pred = scores.argmax(axis=1)
     every = np.arange(len(model.labels))
     out = {
         "documents": len(corpus),
@@ -188,35 +219,62 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus, reader: ReaderOptio
     }
     out["labels"] = list(model.labels)
     out["confusion"] = confusion_matrix(y_true, y_pred, labels=every).tolist()
+    plain = confidence.summary(scores, y_true)
+    own = confidence.summary(scores, y_true, model.temperature) if model.calibration is not None else \
+        plain if model.has_probabilities else None
+    out.update({
+        "temperature": model.temperature,
+        "ece": None if own is None else own["ece"], "ece_uncalibrated": plain["ece"],
+        "nll": None if own is None else own["nll"], "nll_uncalibrated": plain["nll"],
+        "reliability": {"calibrated": None if model.calibration is None else own["reliability"],
+                        "uncalibrated": plain["reliability"]},
+        "coverage": None if own is None else own["coverage"],
+    })
+    if target_accuracy is not None:
+        out["target"] = confidence.threshold_for_accuracy(own["confidence"], own["correct"], target_accuracy)
     return out
 
 
-def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None):
+def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None,
+                    min_probability: float | None = None):
     """Yield a CSV header and then one row per input record, streaming in chunks.
 
     Columns: ``row`` (the record's number in the input, from 1), ``label``, and
-    ``probability`` (softmax) or ``score`` (hinge); with ``top_labels`` > 1 also
-    ``label_2``, ``probability_2`` ... up to ``top_labels``.
+    ``probability`` (calibrated when the model has a calibration) or ``score`` (a hinge model
+    without one); with ``top_labels`` > 1 also ``label_2``, ``probability_2`` ... up to
+    ``top_labels``. Labels are ranked by score, so a calibration never changes them. With
+    ``min_probability`` (needs a calibrated model) a row whose best probability is below it gets
+    an empty ``label`` and ``yes`` in a last column, ``review`` (``no`` for the rows decided).
     """
     top = top_labels
     if not 1 <= top <= len(model.labels):
         raise ConfigError("--top-labels", top, f"must be between 1 and the number of labels ({len(model.labels)})")
-    value = "probability" if model.loss == "softmax" else "score"
+    if min_probability is not None:
+        check_probability("--min-probability", min_probability)
+        require_calibration(model, "--min-probability")
+    value = "probability" if model.has_probabilities else "score"
     header = ["row", "label", value]
     for k in range(2, top + 1):
         header += [f"label_{k}", f"{value}_{k}"]
+    if min_probability is not None:
+        header.append("review")
     yield header
     row = 0
     for chunk in iter_chunks(data, chunk_size=chunk_size, reader=reader):
         scores = model.scores(chunk.texts)
-        if model.loss == "softmax":
-            scores = softmax(scores)
         best = np.argsort(-scores, axis=1, kind="stable")[:, :top]
+        if model.has_probabilities:
+            scores = model.probabilities_of(scores)
         for i in range(len(chunk)):
             row += 1
             out = [row]
             for j in best[i]:
                 out += [model.labels[j], f"{scores[i, j]:.6g}"]
+            if min_probability is not None:
+                unsure = scores[i, best[i, 0]] < min_probability
+                if unsure:
+                    out[1] = ""
+                out.append("yes" if unsure else "no")
             yield out
 
 

@@ -16,8 +16,8 @@ PACKAGE = Path(__file__).resolve().parents[1] / "lintext"
 LAYERS = [
     {"lintext", "errors", "files"},
     {"text", "engine"},
-    {"model"},
-    {"evidence", "pipeline"},
+    {"model", "confidence"},
+    {"evidence", "explanation", "pipeline"},
     {"report"},
     {"tuning"},
     {"estimator"},

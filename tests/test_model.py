@@ -85,6 +85,10 @@ def corrupt(path: Path, tmp_path: Path, how: str) -> Path:
         meta = json.loads((bad / "model.json").read_text())
         meta["labels"] = ["only-one"]
         (bad / "model.json").write_text(json.dumps(meta))
+    elif how == "calibration":
+        meta = json.loads((bad / "model.json").read_text())
+        meta["calibration"]["temperature"] = -1.0
+        (bad / "model.json").write_text(json.dumps(meta))
     elif how == "no-vocabulary":
         (bad / "vocabulary.tsv").unlink()
     elif how == "pickled-array":
@@ -101,6 +105,7 @@ MALFORMED = [
     ("newer-version", f"model format version {FORMAT_VERSION + 1} is newer"),
     ("labels", "field 'labels'"),
     ("no-vocabulary", "vocabulary file is missing"),
+    ("calibration", "field 'calibration.temperature' must be a positive finite number, not -1.0"),
     ("pickled-array", "weights.npz: not a readable NumPy archive"),
 ]
 

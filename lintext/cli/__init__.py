@@ -6,11 +6,12 @@ turned into the library's option object); :mod:`~lintext.cli.display` the progre
 and tables. Commands, one module per family: :mod:`~lintext.cli.commands_data` (``stats``),
 :mod:`~lintext.cli.commands_model` (``train``, ``predict``, ``evaluate``),
 :mod:`~lintext.cli.commands_report` (``report``, ``compare``, ``inspect``),
+:mod:`~lintext.cli.commands_explain` (``explain``),
 :mod:`~lintext.cli.commands_tuning` (``sweep``, ``probe``). Command modules import the
 library inside the command, so ``--help`` loads none of it. Only this package prints or exits.
 """
 
-from . import commands_data, commands_model, commands_report, commands_tuning  # noqa: F401  (register commands)
+from . import commands_data, commands_explain, commands_model, commands_report, commands_tuning  # noqa: F401  (register commands)
 from .app import app
 
 __all__ = ["app"]

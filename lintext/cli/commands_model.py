@@ -76,19 +76,22 @@ def predict(
     data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines or a folder (a label column is optional).")],
     out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output).")] = None,
     top_labels: Annotated[int, typer.Option("--top-labels", help="Give the K best labels of each text, best first.")] = 1,
+    min_probability: Annotated[Optional[float], typer.Option(
+        "--min-probability", metavar="P",
+        help="Leave the label empty, and mark the row for review, when the best calibrated probability is below P.")] = None,
     reader: ReaderOptions = None,
     quiet: QuietOpt = False,
 ):
     """Label texts with a trained model; one CSV row per input record.
 
-    Example: lintext predict models/demo data/demo/test.csv --top-labels 3 --out predictions.csv
+    Example: lintext predict models/demo data/demo/test.csv --top-labels 3 --min-probability 0.8 --out predictions.csv
     """
     from ..files import atomic_file
     from ..model import open_model
     from ..pipeline import prediction_rows
 
     model = open_model(model_dir)
-    rows = prediction_rows(model, data, top_labels=top_labels, reader=reader)
+    rows = prediction_rows(model, data, top_labels=top_labels, reader=reader, min_probability=min_probability)
     header = next(rows)  # validates --top-labels before any output
 
     def write(fh):
@@ -111,22 +114,30 @@ def evaluate(
     model_dir: ModelPath,
     data: Annotated[Path, typer.Argument(metavar="DATA", help="Labelled test data.")],
     as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of tables.")] = False,
+    target_accuracy: Annotated[Optional[float], typer.Option(
+        "--target-accuracy", metavar="A",
+        help="Find the lowest probability threshold whose decided documents reach this accuracy.")] = None,
     reader: ReaderOptions = None,
     quiet: QuietOpt = False,
 ):
-    """Score a model on labelled data: accuracy, F1, per-label table, confusion matrix.
+    """Score a model on labelled data: accuracy, F1, per-label table, confusion matrix, calibration error and
+    the share decided against accuracy for a range of probability thresholds.
 
-    Example: lintext evaluate models/demo data/demo/test.csv
+    Example: lintext evaluate models/demo data/demo/test.csv --target-accuracy 0.97
     """
+    from ..confidence import coverage_rows
     from ..model import open_model
     from ..pipeline import evaluate as evaluate_model
 
     model = open_model(model_dir)
     with status(f"Evaluating on {data}", quiet or as_json):
-        result = evaluate_model(model, data, reader)
+        result = evaluate_model(model, data, reader, target_accuracy=target_accuracy)
+    rows = coverage_rows(result["coverage"]) if result["coverage"] else None
     if as_json:
-        keys = ("accuracy", "macro_f1", "weighted_f1", "per_label", "confusion", "labels", "documents")
-        out.print_json(json.dumps({k: result[k] for k in keys}))
+        keys = ("accuracy", "macro_f1", "weighted_f1", "per_label", "confusion", "labels", "documents",
+                "ece", "ece_uncalibrated", "nll", "nll_uncalibrated", "temperature")
+        extra = {"coverage": rows, **({"target": result["target"]} if "target" in result else {})}
+        out.print_json(json.dumps({**{k: result[k] for k in keys}, **extra}))
         return
     out.print(f"{data}: {result['documents']} documents  accuracy {result['accuracy']:.4f}  "
               f"macro-F1 {result['macro_f1']:.4f}  weighted-F1 {result['weighted_f1']:.4f}")
@@ -143,3 +154,34 @@ def evaluate(
     for i, name in enumerate(result["labels"]):
         confusion.add_row(f"{i} {name}", *[str(v) for v in result["confusion"][i]])
     out.print(confusion)
+    print_confidence(result, rows)
+
+
+def print_confidence(result: dict, rows) -> None:
+    """Calibration error, and the share decided against accuracy per threshold (routing)."""
+    if result["temperature"] is None:
+        out.print("calibration: absent (this model was written without one); ECE of the plain softmax "
+                  f"{result['ece_uncalibrated']:.4f}", markup=False, soft_wrap=True)
+    else:
+        out.print(f"calibration: temperature {result['temperature']:.4g}; expected calibration error (15 bins) "
+                  f"{result['ece']:.4f} (uncalibrated {result['ece_uncalibrated']:.4f}); negative log-likelihood "
+                  f"{result['nll']:.4f} (uncalibrated {result['nll_uncalibrated']:.4f})", markup=False, soft_wrap=True)
+    if rows is None:
+        return
+    table = Table(title="routing: documents decided when the best probability is at least the threshold")
+    for col in ("threshold", "decided", "share decided", "accuracy on decided"):
+        table.add_column(col, justify="right")
+    for r in rows:
+        table.add_row(f"{r['threshold']:g}", str(r["decided"]), f"{r['coverage']:.1%}",
+                      "–" if r["accuracy"] is None else f"{r['accuracy']:.4f}")
+    out.print(table)
+    target = result.get("target")
+    if target is None:
+        return
+    if target["threshold"] is None:
+        out.print(f"no threshold reaches accuracy {target['target']:g}; the best is {target['accuracy']:.4f} "
+                  f"on {target['decided']} documents ({target['coverage']:.1%})", markup=False, soft_wrap=True)
+    else:
+        out.print(f"accuracy {target['target']:g}: decide when the best probability is at least {target['threshold']:.4g} "
+                  f"(predict --min-probability {target['threshold']!r}); {target['decided']} documents decided "
+                  f"({target['coverage']:.1%}), accuracy on them {target['accuracy']:.4f}", markup=False, soft_wrap=True)

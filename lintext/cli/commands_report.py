@@ -14,7 +14,7 @@ from .app import command, out, status
 from .options import ModelPath, QuietOpt
 
 TopOpt = Annotated[int, typer.Option("--top", help="Features shown per label.")]
-RareRowsOpt = Annotated[int, typer.Option("--rare-rows", help="Rows of the table of rare features with large weights.")]
+RareRowsOpt = Annotated[int, typer.Option("--rare-rows", help="Rows of the table of rare features with large weights (and of --errors).")]
 
 
 @command
@@ -65,10 +65,12 @@ def inspect(
     model_dir: ModelPath,
     label: Annotated[Optional[str], typer.Option("--label", help="Only this label.")] = None,
     rare: Annotated[bool, typer.Option("--rare", help="Show rare features (in at most 2 training documents) with large weights.")] = False,
+    errors: Annotated[bool, typer.Option("--errors", help="Show the dev documents misclassified with the highest confidence.")] = False,
     top: TopOpt = 10,
     rare_rows: RareRowsOpt = 10,
 ):
-    """Print a model's strongest features per label (or, with --rare, its likely memorised ones) and its frequency bins.
+    """Print a model's strongest features per label (or, with --rare, its likely memorised ones; with --errors, its
+    most confident dev errors) and its frequency bins.
 
     Example: lintext inspect models/demo --label billing --top 15
     """
@@ -82,6 +84,11 @@ def inspect(
         raise ConfigError("--top", top, "must be at least 1")
     if rare_rows < 1:
         raise ConfigError("--rare-rows", rare_rows, "must be at least 1")
+    if errors:
+        from .commands_explain import print_errors
+
+        print_errors(model, rows=rare_rows)
+        return
     table = feature_table(model)
     if rare:
         rows = rare_heavy(model, top=rare_rows, label=label, table=table)

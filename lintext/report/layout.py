@@ -2,8 +2,9 @@
 
 The page is one self-contained file: inline CSS (screen and print), figures as inline
 SVG, and a few lines of inline script that only measure the figures after layout
-(``data-figures`` / ``data-figures-ok`` / ``data-figure-sizes`` / ``data-page-errors`` on
-``<body>``, read by the tests that open the page in a headless browser). Nothing is
+(``data-figures`` / ``data-figures-ok`` / ``data-figure-sizes`` / ``data-page-errors`` and
+``data-sections``, each section's ``id:top:height``, on ``<body>``, read by the tests that open
+the page in a headless browser and by ``scripts/report_picture.py``). Nothing is
 fetched from anywhere.
 """
 
@@ -53,6 +54,7 @@ td.num { white-space: nowrap; }
 td.feature { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: .84rem; overflow-wrap: anywhere; }
 td.docs { font-size: .82rem; max-width: 34rem; }
 td.docs div + div { margin-top: .3rem; }
+.rare { color: var(--warn); font-weight: 600; font-size: .78rem; }
 .source { color: var(--muted); font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace; }
 .labels { display: grid; grid-template-columns: repeat(auto-fit, minmax(300px, 1fr)); gap: 0 1rem; }
 .labels table { width: 100%; }
@@ -97,6 +99,12 @@ MEASURE_SCRIPT = """(function () {
     b.setAttribute('data-figures-ok', String(ok));
     b.setAttribute('data-figure-sizes', sizes.join(' '));
     b.setAttribute('data-page-height', String(document.documentElement.scrollHeight));
+    var secs = document.querySelectorAll('section[id]'), where = [];
+    for (var j = 0; j < secs.length; j++) {
+      var s = secs[j].getBoundingClientRect();
+      where.push(secs[j].id + ':' + Math.round(s.top + window.scrollY) + ':' + Math.round(s.height));
+    }
+    b.setAttribute('data-sections', where.join(' '));
     if (!b.hasAttribute('data-page-errors')) { b.setAttribute('data-page-errors', '0'); }
   }
   measure();

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from . import figures
+from .confidence_page import calibration_section, coverage_section, errors_section
 from .layout import figure_block, fmt, kv, name_cell, page, pct, section, table
 from .stats import RARE_DF, frequency_bins, key_numbers, rare_heavy, top_features
 
@@ -88,10 +89,13 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
     else:
         body = '<p class="note">No dev or test set was evaluated, so there is no confusion matrix.</p>'
     sections.append(section("confusion", "Confusion matrix", body))
+    sections.append(section("calibration", "Calibration", calibration_section(model)))
+    sections.append(section("routing", "Routing by confidence", coverage_section(model)))
+    sections.append(section("errors", "Most confident errors", errors_section(model)))
 
     nav = [("summary", "Summary"), ("learning", "Learning curves"), ("frequency", "Frequency and updates"),
            ("steps", "Effective step"), ("bins", "Bins"), ("labels", "Per label"), ("rare", "Rare features"),
-           ("confusion", "Confusion")]
+           ("confusion", "Confusion"), ("calibration", "Calibration"), ("routing", "Routing"), ("errors", "Errors")]
     return page(title, subtitle, nav, sections)
 
 

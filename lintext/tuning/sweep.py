@@ -47,7 +47,7 @@ from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
 from ..files import atomic_directory, atomic_file, write_json
 from ..model import Model
-from ..pipeline import PreparedData, Progress, evaluate, prepare_data
+from ..pipeline import PreparedData, Progress, finish_with_dev, prepare_data
 from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
 from ..text.featurizer import FeaturizerConfig
 from ..text.readers import ReaderOptions
@@ -277,5 +277,5 @@ def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, histor
         "sweep": {"runs": n_runs, "run": row["run"], "stop_metric": options.stop_metric},
     }
     model = Model(prepared.featurizer, weights["coef"], weights["intercept"], prepared.labels, options.loss, info, stats)
-    model.info["metrics"]["dev"] = evaluate(model, prepared.dev_set)
+    finish_with_dev(model, prepared)  # calibration, dev errors and dev metrics, as after train
     return model

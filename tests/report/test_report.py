@@ -293,7 +293,8 @@ def assert_offline(html: str):
 def test_report_references_nothing_outside_itself(trained):
     html = (trained["dir"] / "report.html").read_text(encoding="utf-8")
     assert_offline(html)
-    assert html.count('<svg aria-label=') == 4  # learning curves, frequency, effective steps, confusion
+    # learning curves, frequency, effective steps, confusion, reliability diagrams, coverage
+    assert html.count('<svg aria-label=') == 6
     assert "@media print" in html
 
 
@@ -301,14 +302,24 @@ def test_report_sections_and_numbers(trained):
     model = trained["model"]
     html = (trained["dir"] / "report.html").read_text(encoding="utf-8")
     for heading in ("Summary", "Learning curves", "Frequency and updates", "Effective step per feature", "Per frequency bin",
-                    "Strongest features per label", "Rare features with large weights", "Confusion matrix"):
+                    "Strongest features per label", "Rare features with large weights", "Confusion matrix", "Calibration",
+                    "Routing by confidence", "Most confident errors"):
         assert f"<h2>{heading}</h2>" in html
-    assert html.count("<b>How to read:</b>") == 4  # one reading guide per figure
+    assert html.count("<b>How to read:</b>") == 6  # one reading guide per figure
     test = model.info["metrics"]["test"]
     assert f"{test['accuracy']:.4g}" in html  # the test accuracy as pipeline.evaluate computed it
     assert "test set: counts" in html  # the confusion matrix is the test set's when there is one
     first_rare = model.info["explain"]["rare_features"][0]
     assert first_rare["documents"][0]["source"] in html
+    # calibration: the fitted temperature and the dev NLL before and after, as the record holds them
+    cal = model.calibration
+    assert f"T = {cal['temperature']:.4g}" in html
+    assert f"<td>dev</td><td class=\"num\">{cal['nll_before']:.4g}</td><td class=\"num\">{cal['nll_after']:.4g}</td>" in html
+    errors = model.info["dev_errors"]
+    assert f"<b>{errors['errors']}</b> of {errors['documents']} dev documents are misclassified" in html
+    for e in errors["shown"][:3]:
+        assert e["source"] in html
+    assert 'aria-label="Documents decided against accuracy, by probability threshold"' in html
 
 
 # ---------------------------------------------------------------- degraded inputs
@@ -317,12 +328,13 @@ def test_report_sections_and_numbers(trained):
 def test_report_without_statistics_dev_set_or_extras(tmp_path, trained):
     model = trained["model"]
     bare = Model(model.featurizer, model.coef, model.intercept, model.labels, model.loss,
-                 {k: v for k, v in model.info.items() if k not in ("explain", "metrics")}, feature_stats=None)
+                 {k: v for k, v in model.info.items() if k not in ("explain", "metrics", "dev_errors")}, feature_stats=None)
     bare.info["history"] = [{**row, "dev_loss": None, "dev_accuracy": None, "dev_macro_f1": None} for row in model.info["history"]]
     write_report(bare, tmp_path)
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
     assert "no update statistics" in html and "no confusion matrix" in html
     assert "saved without the training-time extras" in html
+    assert "Calibration: absent" in html and "Errors: not recorded" in html and "No routing table" in html
     assert_offline(html)
     with open(tmp_path / "features.csv", encoding="utf-8", newline="") as fh:
         rows = list(csv.DictReader(fh))
@@ -339,7 +351,12 @@ def test_report_for_lbfgs_and_hinge_without_dev(trained, tmp_path):
     write_report(hinge, tmp_path / "hinge")
     html = (tmp_path / "hinge" / "report.html").read_text(encoding="utf-8")
     assert "mean hinge loss" in html and "no dev set" in html and "none (no early stopping)" in html
+    assert "Calibration: absent" in html
     assert_offline(html)
+    calibrated = lintext.build_model(trained["train"], dev=trained["dev"], options={"loss": "hinge", "epochs": 3})
+    write_report(calibrated, tmp_path / "hinge-dev")
+    html = (tmp_path / "hinge-dev" / "report.html").read_text(encoding="utf-8")
+    assert "trained with the hinge loss, whose scores are not probabilities" in html
 
 
 # ---------------------------------------------------------------- (d) a real browser opens the page
@@ -402,7 +419,15 @@ def test_chromium_renders_the_report(trained, tmp_path):
     page = trained["dir"] / "report.html"
     shot = ARTIFACTS / "report.png"
     attrs, console = open_in_browser(page, shot, tmp_path)
-    assert_rendered(attrs, console, page.read_text(encoding="utf-8"), shot)
+    html = page.read_text(encoding="utf-8")
+    assert_rendered(attrs, console, html, shot)
+    # the sections on confidence are laid out (id:top:height from the page's measuring script), and the
+    # coverage and reliability figures are among the figures measured above with a non-zero size
+    sections = {s.split(":")[0]: [int(v) for v in s.split(":")[1:]] for s in attrs["data-sections"].split()}
+    for name in ("calibration", "routing", "errors"):
+        assert sections[name][1] > 150, sections
+    assert sections["calibration"][0] < sections["routing"][0] < sections["errors"][0]
+    assert 'aria-label="Documents decided against accuracy' in html and 'aria-label="Reliability diagrams' in html
 
 
 @pytest.mark.slow
