@@ -11,7 +11,9 @@ and tables. Commands, one module per family: :mod:`~lintext.cli.commands_data` (
 library inside the command, so ``--help`` loads none of it. Only this package prints or exits.
 """
 
-from . import commands_data, commands_explain, commands_model, commands_report, commands_tuning  # noqa: F401  (register commands)
+# imported in the order the commands are listed by --help
+from . import commands_data, commands_model  # noqa: F401, I001
+from . import commands_explain, commands_report, commands_tuning  # noqa: F401, I001
 from .app import app
 
 __all__ = ["app"]

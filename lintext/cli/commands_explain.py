@@ -26,7 +26,7 @@ def explain(
     model_dir: ModelPath,
     data: Annotated[Optional[Path], typer.Argument(
         metavar="DATA", help="Texts to explain: CSV/TSV/JSON Lines or a folder (a label column is optional).")] = None,
-    text: Annotated[Optional[list[str]], typer.Option("--text", help="A text to explain (repeat the option for several).")] = None,
+    text: Annotated[Optional[list[str]], typer.Option("--text", metavar="TEXT", help="A text to explain (repeat the option for several).")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="One JSON object per document, one per line.")] = False,
     top: Annotated[int, typer.Option("--top", help="Features shown per document, largest contribution first (0 = all).")] = 10,
     reader: ReaderOptions = None,

@@ -115,14 +115,15 @@ def errors_section(model) -> str:
     rows = []
     for e in record["shown"][:ERROR_ROWS]:
         feats = "".join(
-            f"<div>{escape(f['feature'] or '–')} <span class=\"muted\">{f['contribution']:+.3f}</span>"
+            f"<div>{escape(f['feature'] or '–')} <span class=\"muted nowrap\">{f['contribution']:+.3f}</span>"
             + (' <b class="rare">rare</b>' if f["rare"] else "") + "</div>" for f in e["features"])
         strength = e["probability"] if by == "probability" else e["margin"]
-        rows.append([f'<span class="source">{escape(e["source"])}</span>', escape(e["true_label"]), escape(e["label"]),
-                     fmt(strength, 3), (escape(e["snippet"]), "docs"), (feats, "feature")])
+        text = f'<div class="source">{escape(e["source"])}</div>{escape(e["snippet"])}'
+        labels = f'<div>{escape(e["true_label"])}</div><div class="muted">predicted</div><div>{escape(e["label"])}</div>'
+        rows.append([(text, "docs wide"), labels, fmt(strength, 3), (feats, "feature contributions")])
     if not rows:
         return intro
     intro += (f"<p>The errors the model was most sure of (by {escape(by)}), with each feature's contribution "
               "(value × weight) to the predicted label's score:</p>")
-    return intro + table(["source", "true label", "predicted", by, "text", "top contributions"], rows, {3})
+    return intro + table(["document", "true label / predicted", by, "top contributions"], rows, {2})
 

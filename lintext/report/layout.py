@@ -54,6 +54,9 @@ td.num { white-space: nowrap; }
 td.feature { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: .84rem; overflow-wrap: anywhere; }
 td.docs { font-size: .82rem; max-width: 34rem; }
 td.docs div + div { margin-top: .3rem; }
+td.wide { min-width: 22rem; }
+td.contributions { min-width: 16rem; }
+.nowrap { white-space: nowrap; }
 .rare { color: var(--warn); font-weight: 600; font-size: .78rem; }
 .source { color: var(--muted); font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace; }
 .labels { display: grid; grid-template-columns: repeat(auto-fit, minmax(300px, 1fr)); gap: 0 1rem; }
