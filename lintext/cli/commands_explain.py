@@ -92,7 +92,7 @@ def print_errors(model, rows: int) -> None:
     record = errors_record(model)
     if record is None:
         out.print("dev errors: not recorded for this model (trained without a dev set, or written before lintext "
-                  "recorded them)", markup=False)
+                  "recorded them)", markup=False, soft_wrap=True)
         return
     out.print(f"dev errors: {record['errors']} of {record['documents']} dev documents misclassified; in "
               f"{record['hinge_on_rare']} of them a rare feature (in at most {record['rare_df']} training documents) "

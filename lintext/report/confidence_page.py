@@ -33,9 +33,10 @@ def calibration_section(model) -> str:
     cal = model.calibration
     metrics = model.info.get("metrics") or {}
     if cal is None:
+        then = ("its probabilities are the plain softmax of its scores, and nobody has checked them against the dev set"
+                if model.has_probabilities else "this hinge-loss model gives scores, not probabilities")
         return ('<p class="note">Calibration: absent. This model was written without a fitted temperature (by a '
-                "lintext that did not fit one, or trained without a dev set), so its probabilities are the plain "
-                "softmax of its scores and nobody has checked them against the dev set.</p>")
+                f"lintext that did not fit one, or trained without a dev set), so {then}.</p>")
     intro = ("<p>Probabilities are <b>calibrated by temperature scaling</b> (Guo, Pleiss, Sun &amp; Weinberger 2017): "
              f"the scores are divided by one number, <b>T = {fmt(cal['temperature'])}</b>, fitted after training "
              f"by minimising the negative log-likelihood of the {fmt(cal.get('documents'))} dev documents, before "
