@@ -351,12 +351,17 @@ def test_report_for_lbfgs_and_hinge_without_dev(trained, tmp_path):
     write_report(hinge, tmp_path / "hinge")
     html = (tmp_path / "hinge" / "report.html").read_text(encoding="utf-8")
     assert "mean hinge loss" in html and "no dev set" in html and "none (no early stopping)" in html
-    assert "Calibration: absent" in html
+    assert "Calibration: absent" in html and "gives scores, not probabilities" in html
     assert_offline(html)
+
+
+@pytest.mark.slow
+def test_report_says_how_hinge_scores_become_probabilities(trained, tmp_path):
     calibrated = lintext.build_model(trained["train"], dev=trained["dev"], options={"loss": "hinge", "epochs": 3})
-    write_report(calibrated, tmp_path / "hinge-dev")
-    html = (tmp_path / "hinge-dev" / "report.html").read_text(encoding="utf-8")
+    write_report(calibrated, tmp_path)
+    html = (tmp_path / "report.html").read_text(encoding="utf-8")
     assert "trained with the hinge loss, whose scores are not probabilities" in html
+    assert f"T = {calibrated.temperature:.4g}" in html
 
 
 # ---------------------------------------------------------------- (d) a real browser opens the page
