@@ -64,3 +64,29 @@ class DivergenceError(LinTextError):
             f"training diverged at epoch {epoch} (loss {loss:.4g}) with {name}learning rate "
             f"{learning_rate:g}; try a smaller one, e.g. {learning_rate / 10:g}"
         )
+
+
+class OutputError(LinTextError):
+    """An output path lintext must not or cannot write: a folder it did not write, a folder
+    where a file is expected, a read-only parent, a name too long, a full disk.
+
+    The message names the option as typed (``--out``), the path and the problem.
+    """
+
+    def __init__(self, path, problem: str, option: str = "--out"):
+        self.path = str(path)
+        self.option = option
+        self.problem = problem
+        super().__init__(f"{option} {self.path}: {problem}" if option else f"{self.path}: {problem}")
+
+
+class Terminated(KeyboardInterrupt):
+    """Raised in the main thread when the command line receives SIGTERM or SIGHUP.
+
+    A subclass of :class:`KeyboardInterrupt`, so that every clean-up written for Ctrl-C
+    (temporary files, worker processes) runs for it too.
+    """
+
+    def __init__(self, signum: int):
+        self.signum = signum
+        super().__init__(signum)

@@ -119,12 +119,17 @@ class Model:
             **({"calibration": self.calibration} if self.calibration is not None else {}),
         }
 
-    def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None) -> Path:
-        """Write the model directory atomically; ``extra(tmpdir)`` may add files before the rename."""
+    def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None, force: bool = False) -> Path:
+        """Write the model directory atomically; ``extra(tmpdir)`` may add files before the rename.
+
+        An existing ``path`` is replaced only when it is a lintext model directory holding no
+        file lintext did not write (or an empty folder), unless ``force``
+        (:func:`lintext.outputs.check_output_folder`); otherwise OutputError.
+        """
         if not np.isfinite(self.coef).all() or not np.isfinite(self.intercept).all():
             raise LinTextError("refusing to save a model with non-finite weights")
         target = Path(path)
-        return atomic_directory(target, lambda tmp: (self._write(tmp), extra and extra(tmp)))
+        return atomic_directory(target, lambda tmp: (self._write(tmp), extra and extra(tmp)), kind="model", force=force)
 
     def _write(self, folder: Path) -> None:
         with open(folder / "model.json", "w", encoding="utf-8") as fh:

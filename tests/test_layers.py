@@ -14,7 +14,7 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "lintext"
 LAYERS = [
-    {"lintext", "errors", "files"},
+    {"lintext", "errors", "files", "outputs"},
     {"text", "engine"},
     {"model", "confidence"},
     {"evidence", "explanation", "pipeline"},

@@ -34,7 +34,8 @@ def tree_bytes(folder: Path) -> dict:
 
 def test_files_and_fields(trained):
     model, path, _ = trained
-    assert sorted(p.name for p in path.iterdir()) == ["feature_stats.npz", "model.json", "vocabulary.tsv", "weights.npz"]
+    assert sorted(p.name for p in path.iterdir()) == [".lintext.json", "feature_stats.npz", "model.json", "vocabulary.tsv",
+                                                      "weights.npz"]
     meta = json.loads((path / "model.json").read_text())
     assert meta["format_version"] == FORMAT_VERSION and meta["labels"] == ["billing", "outage", "water"]
     assert meta["training"]["optimizer"] == model.info["training"]["optimizer"]
@@ -133,7 +134,7 @@ def test_atomic_directory_keeps_old_on_failure(tmp_path):
     assert tree_bytes(target) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
     atomic_directory(target, lambda d: (d / "b.txt").write_text("new"))
-    assert tree_bytes(target) == {"b.txt": b"new"}
+    assert set(tree_bytes(target)) == {".lintext.json", "b.txt"} and tree_bytes(target)["b.txt"] == b"new"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
 
 

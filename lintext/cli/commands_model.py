@@ -16,7 +16,7 @@ from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
 from .app import command, err, out, show_progress, status
 from .display import Display
-from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, ModelPath, QuietOpt, featurizer_options,
+from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, ModelPath, QuietOpt, featurizer_options,
                       reader_options, training_options)
 
 
@@ -26,7 +26,7 @@ from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, ModelPath, Quie
 @reader_options
 def train(
     data: DataPath,
-    out_dir: Annotated[Path, typer.Option("--out", metavar="MODEL_DIR", help="Model directory to write (replaced atomically).")],
+    out_dir: Annotated[Path, typer.Option("--out", metavar="MODEL_DIR", help="Model directory to write (a lintext model there is replaced atomically; any other folder is refused).")],
     dev: DevOpt = None,
     dev_fraction: DevFractionOpt = 0.1,
     test: Annotated[Optional[Path], typer.Option("--test", metavar="FILE", help="A test set, evaluated once at the end.")] = None,
@@ -35,14 +35,17 @@ def train(
     options: TrainOptions = None,
     jobs: JobsOpt = 0,
     no_report: Annotated[bool, typer.Option("--no-report", help="Skip features.csv and report.html.")] = False,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Train a classifier and write a model directory (with features.csv and report.html).
 
     Example: lintext train data/demo/train.csv --dev data/demo/dev.csv --test data/demo/test.csv --out models/demo
     """
+    from ..outputs import check_output_folder
     from ..pipeline import build_model
 
+    check_output_folder(out_dir, "model", force, inputs=[data, dev, test])
     display = Display(show_progress(quiet))
     try:
         model = build_model(data, dev=dev, test=test, dev_fraction=dev_fraction, featurizer=featurizer,
@@ -52,7 +55,7 @@ def train(
     from ..report.writer import write_report  # matplotlib loads only when a report is written
 
     with status("Writing the model and its report", quiet):
-        where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)))
+        where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)), force=force)
     print_training_summary(model)
     out.print(f"model written to {where}", markup=False, soft_wrap=True)
 
@@ -74,12 +77,13 @@ def print_training_summary(model) -> None:
 def predict(
     model_dir: ModelPath,
     data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines or a folder (a label column is optional).")],
-    out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output).")] = None,
+    out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output); only a predictions file is replaced.")] = None,
     top_labels: Annotated[int, typer.Option("--top-labels", help="Give the K best labels of each text, best first.")] = 1,
     min_probability: Annotated[Optional[float], typer.Option(
         "--min-probability", metavar="P",
         help="Leave the label empty, and mark the row for review, when the best calibrated probability is below P.")] = None,
     reader: ReaderOptions = None,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Label texts with a trained model; one CSV row per input record.
@@ -88,8 +92,11 @@ def predict(
     """
     from ..files import atomic_file
     from ..model import open_model
+    from ..outputs import check_output_file
     from ..pipeline import prediction_rows
 
+    if out_file is not None:
+        check_output_file(out_file, "predictions", force, inputs=[data, model_dir])
     model = open_model(model_dir)
     rows = prediction_rows(model, data, top_labels=top_labels, reader=reader, min_probability=min_probability)
     header = next(rows)  # validates --top-labels before any output
@@ -103,7 +110,7 @@ def predict(
         if out_file is None:
             write(sys.stdout)
         else:
-            atomic_file(out_file, write)
+            atomic_file(out_file, write, kind="predictions", force=force)
     if out_file is not None and not quiet:
         err.print(f"predictions written to {out_file}")
 

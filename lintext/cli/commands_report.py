@@ -11,7 +11,7 @@ from rich.text import Text
 
 from ..errors import ConfigError
 from .app import command, out, status
-from .options import ModelPath, QuietOpt
+from .options import ForceOpt, ModelPath, QuietOpt
 
 TopOpt = Annotated[int, typer.Option("--top", help="Features shown per label.")]
 RareRowsOpt = Annotated[int, typer.Option("--rare-rows", help="Rows of the table of rare features with large weights (and of --errors).")]
@@ -42,20 +42,23 @@ def report(
 @command
 def compare(
     model_dirs: Annotated[list[Path], typer.Argument(metavar="MODEL_DIR", help="Model directories to show side by side.")],
-    out_file: Annotated[Path, typer.Option("--out", metavar="FILE", help="HTML file to write (replaced atomically).")],
+    out_file: Annotated[Path, typer.Option("--out", metavar="FILE", help="HTML file to write (only a lintext page there is replaced).")],
     name: Annotated[Optional[list[str]], typer.Option("--name", help="Display name of each model, in order (repeat the option).")] = None,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Write one page comparing models: update magnitude per frequency bin and learning curves on shared axes.
 
     Example: lintext compare models/sgd models/adagrad models/adam --out compare.html
     """
+    from ..outputs import check_output_file
     from ..report.writer import write_comparison
 
+    check_output_file(out_file, "page", force, inputs=list(model_dirs))
     if name and len(name) != len(model_dirs):
         raise ConfigError("--name", ", ".join(name), f"give one name per model directory ({len(model_dirs)})")
     with status(f"Comparing {len(model_dirs)} models", quiet):
-        where = write_comparison(model_dirs, out_file, names=name or None)
+        where = write_comparison(model_dirs, out_file, names=name or None, force=force)
     if not quiet:
         out.print(f"comparison written to {where}", markup=False)
 

@@ -15,7 +15,7 @@ from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
 from .app import command, out, show_progress, status
 from .display import Display, print_wide
-from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, QuietOpt, featurizer_options, reader_options,
+from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, featurizer_options, reader_options,
                       training_options)
 
 
@@ -25,7 +25,7 @@ from .options import (DataPath, DevFractionOpt, DevOpt, JobsOpt, QuietOpt, featu
 @reader_options
 def sweep(
     data: DataPath,
-    out_dir: Annotated[Path, typer.Option("--out", metavar="DIR", help="Folder for sweep.csv, sweep.json, sweep.html and best/ (replaced atomically).")],
+    out_dir: Annotated[Path, typer.Option("--out", metavar="DIR", help="Folder for sweep.csv, sweep.json, sweep.html and best/ (a lintext sweep there is replaced atomically; any other folder is refused).")],
     dev: DevOpt = None,
     dev_fraction: DevFractionOpt = 0.1,
     optimizers: Annotated[str, typer.Option("--optimizers", help="Comma-separated optimizers: sgd, adagrad, adadelta, rmsprop, adam.")] = "sgd,adagrad,adam",
@@ -35,6 +35,7 @@ def sweep(
     featurizer: FeaturizerConfig = None,
     options: TrainOptions = None,
     jobs: JobsOpt = 0,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Train every optimizer with every learning rate in parallel; keep the best run as a model.
@@ -42,8 +43,10 @@ def sweep(
     Example: lintext sweep data/demo/train.csv --dev data/demo/dev.csv --optimizers sgd,adam --learning-rates 0.01,0.1,1 --out sweeps/demo
     """
     from ..report.sweep_page import METRIC_NAMES, SHOWN_COLUMNS, TEXT_COLUMNS, cell
+    from ..outputs import check_output_folder
     from ..tuning import sweep as sweeping
 
+    check_output_folder(out_dir, "sweep", force, inputs=[data, dev])
     names = sweeping.parse_optimizers(optimizers, "--optimizers")
     rates = sweeping.parse_learning_rates(learning_rates, "--learning-rates")
     display = Display(show_progress(quiet))
@@ -54,7 +57,7 @@ def sweep(
     finally:
         display.close()
     with status(f"Writing {out_dir}", quiet):
-        where = result.save(out_dir)
+        where = result.save(out_dir, force=force)
     metric = METRIC_NAMES[result.stop_metric]
     table = Table(title=f"{len(result.rows)} runs ranked by {metric}, {result.settings['workers']} worker(s)",
                   box=box.SIMPLE_HEAD, pad_edge=False)
@@ -78,7 +81,7 @@ def sweep(
 @reader_options
 def probe(
     data: DataPath,
-    out_dir: Annotated[Optional[Path], typer.Option("--out", metavar="DIR", help="Folder for probe.csv, probe.json and probe.html (the plot).")] = None,
+    out_dir: Annotated[Optional[Path], typer.Option("--out", metavar="DIR", help="Folder for probe.csv, probe.json and probe.html (the plot); only a lintext probe there is replaced.")] = None,
     steps: Annotated[int, typer.Option("--steps", help="Most steps; the learning rate grows geometrically over them.")] = 300,
     min_lr: Annotated[float, typer.Option("--min-lr", help="Learning rate of the first step.")] = 1e-6,
     max_lr: Annotated[float, typer.Option("--max-lr", help="Learning rate of the last step (the probe stops earlier on blow-up).")] = 10.0,
@@ -88,14 +91,18 @@ def probe(
     reader: ReaderOptions = None,
     featurizer: FeaturizerConfig = None,
     options: TrainOptions = None,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Suggest a learning rate from one short run whose learning rate grows step by step (Smith's range test, 2017).
 
     Example: lintext probe data/demo/train.csv --optimizer adam --out probes/adam
     """
+    from ..outputs import check_output_folder
     from ..tuning.probe import probe as run_probe
 
+    if out_dir is not None:
+        check_output_folder(out_dir, "probe", force, inputs=[data, dev])
     display = Display(show_progress(quiet))
     try:
         result = run_probe(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
@@ -111,5 +118,5 @@ def probe(
         out.print(f"suggested learning rate: {result.suggestion:.3g}", markup=False)
     if out_dir is not None:
         with status(f"Writing {out_dir}", quiet):
-            where = result.save(out_dir)
+            where = result.save(out_dir, force=force)
         out.print(f"plot and table written to {where}", markup=False, soft_wrap=True)

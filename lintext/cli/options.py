@@ -34,6 +34,8 @@ DevOpt = Annotated[Optional[Path], typer.Option("--dev", metavar="FILE", help="A
 DevFractionOpt = Annotated[float, typer.Option(
     "--dev-fraction", help="Share of DATA held out for dev (stratified, seeded); 0 for none.")]
 JobsOpt = Annotated[int, typer.Option("--jobs", help="Processes for featurizing large corpora (0 = one per core).")]
+ForceOpt = Annotated[bool, typer.Option(
+    "--force", help="Replace --out even when lintext did not write it (never the current folder or an input).")]
 
 
 def _group(target: str, params: list, build):

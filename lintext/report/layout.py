@@ -178,6 +178,7 @@ def page(title: str, subtitle: str, nav: list, sections: list) -> str:
     return (
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
         "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+        f"<meta name=\"generator\" content=\"lintext {escape(__version__)}\">\n"
         f"<title>{escape(title)}</title>\n<style>{CSS}</style>\n<script>{HEAD_SCRIPT}</script>\n</head>\n<body>\n"
         f'<header class="top"><p class="kicker">lintext</p><h1>{escape(title)}</h1><p class="sub">{subtitle}</p></header>\n'
         f'<nav class="toc">{links}</nav>\n<main>\n' + "\n".join(sections) + "\n</main>\n"

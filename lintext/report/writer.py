@@ -88,13 +88,15 @@ def comparison_html(models: list, names: list | None = None, title: str | None =
     return comparison_page([(n, m, feature_table(m)) for n, m in zip(names, models)], title=title)
 
 
-def write_comparison(model_dirs: list, out: str | os.PathLike, names: list | None = None, title: str | None = None) -> Path:
+def write_comparison(model_dirs: list, out: str | os.PathLike, names: list | None = None, title: str | None = None,
+                     force: bool = False) -> Path:
     """Load model directories and write one page comparing them.
 
     Parameters
     ----------
     model_dirs : model directories (or already loaded :class:`~lintext.model.Model` objects).
-    out : the HTML file to write (atomically).
+    out : the HTML file to write (atomically); an existing file is replaced only when it is a
+        lintext page, unless ``force``.
     names : one display name per model (default: the directory names, made unique).
 
     Returns
@@ -112,7 +114,7 @@ def write_comparison(model_dirs: list, out: str | os.PathLike, names: list | Non
             models.append(open_model(item))
             default_names.append(Path(item).resolve().name)
     html = comparison_html(models, names or _unique(default_names), title=title)
-    return atomic_file(Path(out), lambda fh: fh.write(html), newline="\n")
+    return atomic_file(Path(out), lambda fh: fh.write(html), newline="\n", kind="page", force=force)
 
 
 def _check_top(top: int, rare_rows: int) -> None:

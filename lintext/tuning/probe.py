@@ -87,8 +87,11 @@ class ProbeResult:
         return {**self.settings, "suggestion": self.suggestion, "steepest_step": self.steepest_step,
                 "stop_reason": self.stop_reason, "steps_run": int(len(self.learning_rates))}
 
-    def save(self, path: str | os.PathLike) -> Path:
-        """Write ``probe.csv`` (one row per step), ``probe.json`` and ``probe.html`` (the plot) atomically."""
+    def save(self, path: str | os.PathLike, force: bool = False) -> Path:
+        """Write ``probe.csv`` (one row per step), ``probe.json`` and ``probe.html`` (the plot) atomically.
+
+        An existing ``path`` is replaced only when it is a lintext probe folder, unless ``force``.
+        """
 
         def table(fh):
             writer = csv.writer(fh, lineterminator="\n")
@@ -101,7 +104,7 @@ class ProbeResult:
             write_json(tmp / "probe.json", self.to_json())
             atomic_file(tmp / "probe.html", lambda fh: fh.write(probe_page(self)))
 
-        return atomic_directory(Path(path), fill)
+        return atomic_directory(Path(path), fill, kind="probe", force=force)
 
 
 def smoothing_lag(beta: float, count: int) -> float:

@@ -184,8 +184,11 @@ class SweepResult:
         return {**self.settings, "stop_metric": self.stop_metric, "best_run": self.best,
                 "runs": [{**row, "history": hist} for row, hist in zip(self.rows, self.histories)]}
 
-    def save(self, path: str | os.PathLike) -> Path:
-        """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model) atomically."""
+    def save(self, path: str | os.PathLike, force: bool = False) -> Path:
+        """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model) atomically.
+
+        An existing ``path`` is replaced only when it is a lintext sweep folder, unless ``force``.
+        """
         def fill(tmp: Path):
             atomic_file(tmp / "sweep.csv", self._write_csv)
             write_json(tmp / "sweep.json", self.to_json())
@@ -193,7 +196,7 @@ class SweepResult:
             if self.model is not None:
                 self.model.save(tmp / "best")
 
-        return atomic_directory(Path(path), fill)
+        return atomic_directory(Path(path), fill, kind="sweep", force=force)
 
     def _write_csv(self, fh) -> None:
         writer = csv.writer(fh, lineterminator="\n")

@@ -219,7 +219,7 @@ def test_cli_sweep_writes_table_page_and_best_model(small_split, tmp_path):
                  "--learning-rates", "0.1,1", "--epochs", 4, "--workers", 1)
     assert result.exit_code == 0, result.output
     assert "best: " in result.output and ("finished" in result.output or "stopped early" in result.output)
-    assert sorted(p.name for p in out.iterdir()) == ["best", "sweep.csv", "sweep.html", "sweep.json"]
+    assert sorted(p.name for p in out.iterdir()) == [".lintext.json", "best", "sweep.csv", "sweep.html", "sweep.json"]
     assert len(rows_of(out / "sweep.csv")) == 4
     assert (out / "best" / "model.json").is_file() and (out / "best" / "weights.npz").is_file()
     assert not any(p.name.startswith(".") for p in tmp_path.iterdir())  # no temporary folder left behind
