@@ -326,9 +326,11 @@ def _alive(rest: str) -> bool:
     pid = rest.split("-", 1)[0]
     if not pid.isdigit() or "-" not in rest:
         return False  # written before names carried the process id
-    pid = int(pid)
-    if pid == os.getpid():
-        return False
+    return int(pid) != os.getpid() and process_alive(int(pid))
+
+
+def process_alive(pid: int) -> bool:
+    """Whether a process with this id exists (another user's counts)."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:

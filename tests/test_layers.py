@@ -14,7 +14,7 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "lintext"
 LAYERS = [
-    {"lintext", "errors", "files", "outputs"},
+    {"lintext", "errors", "files", "outputs", "resources"},
     {"text", "engine"},
     {"model", "confidence"},
     {"evidence", "explanation", "pipeline"},

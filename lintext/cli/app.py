@@ -1,7 +1,13 @@
 """The typer app, its error handling and the two consoles.
 
-Errors from the library become one line on stderr and exit status 2; anything unexpected is
-exit status 1 (set ``LINTEXT_DEBUG=1`` for the traceback); Ctrl-C is exit status 130.
+Errors from the library become one line on stderr and exit status 2, and so do usage errors
+(an unknown option, a missing argument); anything unexpected is exit status 1 (set
+``LINTEXT_DEBUG=1`` for the traceback). A signal ends a command cleanly: Ctrl-C (SIGINT) with
+exit status 130, SIGTERM with 143, SIGHUP with 129 (the handlers are installed by
+:func:`lintext.__main__.main` before anything else is imported). A closed standard output
+(``lintext predict ... | head -1``) ends the command quietly. When a command ends, worker
+processes it started are stopped. Library warnings do not reach the terminal (they do with
+``LINTEXT_DEBUG=1``).
 """
 
 from __future__ import annotations
@@ -9,6 +15,9 @@ from __future__ import annotations
 import contextlib
 import functools
 import os
+import signal
+import sys
+import warnings
 from typing import Annotated
 
 import typer
@@ -46,7 +55,30 @@ def _plain_help() -> None:
         core._TyperParameter.display_type = value_kind
 
 
+def _one_line_usage_errors() -> None:
+    """Usage errors as one line, ``error: <problem> (see 'lintext train --help')``, exit status 2.
+
+    Skipped if typer changes shape (the multi-line form of click is then shown).
+    """
+    from typer import core
+
+    click = getattr(core, "_click", None) or getattr(core, "click", None)
+    usage_error = getattr(getattr(click, "exceptions", None), "UsageError", None)
+    if usage_error is None:
+        return
+
+    def show(self, file=None):
+        hint = ""
+        if self.ctx is not None:
+            hint = f" (see '{self.ctx.command_path} --help')"
+        message = " ".join(str(self.format_message()).split())
+        print(f"error: {message}{hint}", file=file or sys.stderr)
+
+    usage_error.show = show
+
+
 _plain_help()
+_one_line_usage_errors()
 app = typer.Typer(
     add_completion=False,
     no_args_is_help=True,
@@ -63,14 +95,24 @@ def command(func):
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        done_before = len(_written())
         try:
-            return func(*args, **kwargs)
+            with warnings.catch_warnings():
+                if not os.environ.get("LINTEXT_DEBUG"):
+                    warnings.simplefilter("ignore")
+                return func(*args, **kwargs)
         except LinTextError as exc:
             err.print(f"error: {exc}", markup=False, soft_wrap=True)
             raise typer.Exit(exc.exit_code) from None
-        except KeyboardInterrupt:
-            err.print("interrupted", markup=False)
-            raise typer.Exit(130) from None
+        except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP raised as Terminated
+            signum = getattr(exc, "signum", signal.SIGINT)
+            done = [str(path) for path in _written()[done_before:]]
+            word = "interrupted" if signum == signal.SIGINT else "terminated"
+            _say(f"{word}; {', '.join(done)} had already been written" if done else word)
+            raise typer.Exit(128 + signum) from None
+        except BrokenPipeError:  # the reader of standard output went away (| head)
+            _quiet_stdout()
+            raise typer.Exit(128 + signal.SIGPIPE) from None
         except (typer.Exit, typer.Abort):
             raise
         except Exception as exc:  # an internal fault, not bad input
@@ -78,8 +120,35 @@ def command(func):
                 raise
             err.print(f"internal error: {type(exc).__name__}: {exc}", markup=False, soft_wrap=True)
             raise typer.Exit(1) from None
+        finally:
+            from ..resources import stop_worker_processes
+
+            stop_worker_processes()
 
     return app.command()(wrapper)
+
+
+def _written() -> list:
+    """Outputs moved into place by this process (lintext.files, when it is loaded)."""
+    files = sys.modules.get("lintext.files")
+    return getattr(files, "written", [])
+
+
+def _say(message: str) -> None:
+    try:
+        err.print(message, markup=False, soft_wrap=True)
+    except OSError:
+        pass
+
+
+def _quiet_stdout() -> None:
+    """Point standard output at /dev/null, so the flush at exit finds no broken pipe."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):
+        pass
 
 
 def show_progress(quiet: bool) -> bool:

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import csv
 import json
+import shutil
 import sys
+import tempfile
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -78,7 +80,7 @@ def predict(
     model_dir: ModelPath,
     data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines or a folder (a label column is optional).")],
     out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output); only a predictions file is replaced.")] = None,
-    top_labels: Annotated[int, typer.Option("--top-labels", help="Give the K best labels of each text, best first.")] = 1,
+    top_labels: Annotated[int, typer.Option("--top-labels", help="Give the N best labels of each text, best first.")] = 1,
     min_probability: Annotated[Optional[float], typer.Option(
         "--min-probability", metavar="P",
         help="Leave the label empty, and mark the row for review, when the best calibrated probability is below P.")] = None,
@@ -107,8 +109,11 @@ def predict(
         writer.writerows(rows)
 
     with status(f"Predicting {data}", quiet or out_file is None):
-        if out_file is None:
-            write(sys.stdout)
+        if out_file is None:  # nothing reaches standard output before the whole input has been read
+            with tempfile.SpooledTemporaryFile(max_size=2**23, mode="w+", encoding="utf-8", newline="") as spool:
+                write(spool)
+                spool.seek(0)
+                shutil.copyfileobj(spool, sys.stdout)
         else:
             atomic_file(out_file, write, kind="predictions", force=force)
     if out_file is not None and not quiet:

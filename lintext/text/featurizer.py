@@ -140,7 +140,7 @@ class Featurizer:
     # ------------------------------------------------------------ internals
 
     def _jobs_for(self, n_texts: int) -> int:
-        jobs = cpu_count() if self.n_jobs in (0, -1) else self.n_jobs
+        jobs = cpu_count() if self.n_jobs in (0, -1) else min(self.n_jobs, cpu_count())  # never more than the cores
         threshold = PARALLEL_MIN_DOCS if self.parallel_min_docs is None else self.parallel_min_docs
         return min(jobs, n_texts) if jobs > 1 and n_texts >= max(threshold, 2) else 1
 

@@ -39,22 +39,25 @@ from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
-from joblib import Parallel, cpu_count, delayed, parallel_config
+from joblib import Parallel, delayed, parallel_config
 
 from ..engine.optimizers import STEP_OPTIMIZERS
 from ..engine.options import TrainOptions
 from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
 from ..files import atomic_directory, atomic_file, write_json
+from ..outputs import process_alive, remove_path
 from ..model import Model
 from ..pipeline import PreparedData, Progress, finish_with_dev, prepare_data
 from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
+from ..resources import capped_processes, stop_worker_processes
 from ..text.featurizer import FeaturizerConfig
 from ..text.readers import ReaderOptions
 
 DEFAULT_OPTIMIZERS = ("sgd", "adagrad", "adam")
 DEFAULT_LEARNING_RATES = (1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 TIMINGS = ("seconds", "cpu_seconds")  # the only columns that differ between repeated sweeps
+SHARED_PREFIX = "lintext-sweep-"  # + process id: the temporary folder of the shared arrays
 _SHARED = ("data", "indices", "indptr", "y", "dev_data", "dev_indices", "dev_indptr", "dev_y")
 
 
@@ -234,23 +237,28 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     grid = make_grid(base, optimizers, learning_rates)
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 0):
         raise ConfigError("--workers", workers, "must be a whole number of processes (0 = one per core)")
-    jobs = min(len(grid), workers or cpu_count())
+    jobs = capped_processes(workers, cap=len(grid))
     if dev is None and not dev_fraction:
         raise ConfigError("--dev-fraction", dev_fraction, "a sweep ranks its runs on dev data; give --dev FILE or a fraction above 0")
     prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report)
     n_labels = len(prepared.labels)
     started = time.perf_counter()
     found: dict[int, tuple[dict, list]] = {}
-    with tempfile.TemporaryDirectory(prefix="lintext-sweep-") as folder:
+    remove_shared_leftovers()
+    with tempfile.TemporaryDirectory(prefix=f"{SHARED_PREFIX}{os.getpid()}-") as folder:
         shapes = share_arrays(Path(folder), prepared.X, prepared.y, prepared.X_dev, prepared.y_dev)
         # Smallest learning rates first: they tend to run every epoch, so the long runs start
         # early and the short ones fill the gaps at the end (longest-first scheduling).
         order = sorted(range(len(grid)), key=lambda i: (grid[i].learning_rate, i))
         tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels) for i in order)
-        with parallel_config(backend="loky", inner_max_num_threads=1):
-            for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
-                found[row["run"]] = (row, history)
-                report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
+        try:
+            with parallel_config(backend="loky", inner_max_num_threads=1):
+                for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
+                    found[row["run"]] = (row, history)
+                    report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
+        except BaseException:  # an error, Ctrl-C or SIGTERM: no worker runs on after the sweep
+            stop_worker_processes()
+            raise
         rows = [found[i][0] for i in range(len(grid))]
         histories = [found[i][1] for i in range(len(grid))]
         best = best_run(rows, base.stop_metric)
@@ -266,6 +274,15 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
         "training": base.to_json(), "featurizer": prepared.featurizer.config.to_json(), "data": prepared.description,
     }
     return SweepResult(rows, histories, base.stop_metric, best, model, settings)
+
+
+def remove_shared_leftovers() -> None:
+    """Remove the shared-array folders of sweeps whose process is gone (killed before its clean-up)."""
+    root = Path(tempfile.gettempdir())
+    for folder in root.glob(f"{SHARED_PREFIX}*"):
+        pid = folder.name[len(SHARED_PREFIX):].split("-", 1)[0]
+        if pid.isdigit() and int(pid) != os.getpid() and not process_alive(int(pid)):
+            remove_path(folder)
 
 
 def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, history: list, weights: dict, n_runs: int) -> Model:

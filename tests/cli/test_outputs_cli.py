@@ -129,3 +129,30 @@ def test_out_below_a_file_is_refused_before_training(tiny_csv, tmp_path):
     blocker = write(tmp_path / "file", "x")
     result = run("train", tiny_csv, "--out", blocker / "sub", "--epochs", "1", "--quiet")
     one_line_error(result, f"{blocker} is a file, not a folder")
+
+
+def test_no_output_before_an_input_error(old_model, tmp_path):
+    # The error is on the last line: nothing may reach standard output before it is found.
+    rows = ["text"] + [f"water pressure {i}" for i in range(50)]
+    bad = write(tmp_path / "bad.csv", "\n".join(rows) + "\n" + '"unclosed\n')
+    result = runner.invoke(app, ["predict", str(old_model), str(bad)])
+    assert result.exit_code == 2
+    assert result.stdout == "" and result.stderr.startswith(f"error: {bad}")
+
+
+def test_usage_errors_are_one_line_with_exit_2(tiny_csv):
+    for args, problem in ((["train", tiny_csv, "--no-such-option"], "No such option: --no-such-option"),
+                          (["train"], "Missing argument 'DATA'"),
+                          (["train", tiny_csv, "--out", "m", "--epochs", "many"], "Invalid value for '--epochs'")):
+        result = run(*args)
+        assert result.exit_code == 2
+        lines = result.output.strip().splitlines()
+        assert len(lines) == 1 and lines[0].startswith("error: ") and problem in lines[0], result.output
+        assert lines[0].endswith(" train --help')")  # (see 'lintext train --help'); the test runner says 'root'
+
+
+def test_help_shows_arguments_by_name_and_values_by_kind():
+    text = run("predict", "--help").output
+    assert "MODEL_DIR" in text and "DATA" in text and "--force" in text
+    assert "<int>" not in text and "<float>" not in text and "{DATA}" not in text
+    assert "INTEGER" not in text and "--top-labels N" in " ".join(text.split())
