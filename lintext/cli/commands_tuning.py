@@ -67,7 +67,8 @@ def sweep(
         table.add_row(*[cell(row, col) for col in SHOWN_COLUMNS], style="bold green" if row["run"] == result.best else None)
     print_wide(table)
     if result.best is None:
-        raise LinTextError(f"every run diverged; results written to {where}, no model saved; try smaller learning rates")
+        kept = f"{where / 'best'} still holds the previous sweep's model" if result.kept_previous_best else "no model saved"
+        raise LinTextError(f"every run diverged; results written to {where}, {kept}; try smaller learning rates")
     best = result.rows[result.best]
     out.print(f"best: {best['optimizer']} at learning rate {best['learning_rate']:g} ({metric} {best['stop_value']:.4f}); "
               f"model written to {where / 'best'}", markup=False, soft_wrap=True)

@@ -32,6 +32,7 @@ from __future__ import annotations
 import csv
 import math
 import os
+import shutil
 import tempfile
 import time
 from dataclasses import dataclass, field, replace
@@ -46,7 +47,7 @@ from ..engine.options import TrainOptions
 from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
 from ..files import atomic_directory, atomic_file, write_json
-from ..outputs import process_alive, remove_path
+from ..outputs import output_kind, process_alive, remove_path
 from ..model import Model
 from ..pipeline import PreparedData, Progress, finish_with_dev, prepare_data
 from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
@@ -191,15 +192,28 @@ class SweepResult:
         """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model) atomically.
 
         An existing ``path`` is replaced only when it is a lintext sweep folder, unless ``force``.
+        When no run gave a model, the ``best/`` of the sweep already at ``path`` is kept (and
+        ``sweep.json`` says so with ``"best_kept_from_previous_sweep": true``).
         """
+        previous = Path(path).resolve() / "best"
+
         def fill(tmp: Path):
+            keep = self.model is None and output_kind(previous) == "model"
+            self.settings["best_kept_from_previous_sweep"] = keep
             atomic_file(tmp / "sweep.csv", self._write_csv)
             write_json(tmp / "sweep.json", self.to_json())
             atomic_file(tmp / "sweep.html", lambda fh: fh.write(sweep_page(self)))
             if self.model is not None:
                 self.model.save(tmp / "best")
+            elif keep:  # hard links where the file system has them: no copy of the weights
+                shutil.copytree(previous, tmp / "best", symlinks=True, copy_function=_link_or_copy)
 
         return atomic_directory(Path(path), fill, kind="sweep", force=force)
+
+    @property
+    def kept_previous_best(self) -> bool:
+        """True when :meth:`save` kept the previous sweep's ``best/`` because no run gave a model."""
+        return bool(self.settings.get("best_kept_from_previous_sweep"))
 
     def _write_csv(self, fh) -> None:
         writer = csv.writer(fh, lineterminator="\n")
@@ -274,6 +288,13 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
         "training": base.to_json(), "featurizer": prepared.featurizer.config.to_json(), "data": prepared.description,
     }
     return SweepResult(rows, histories, base.stop_metric, best, model, settings)
+
+
+def _link_or_copy(source, target) -> None:
+    try:
+        os.link(source, target)
+    except OSError:
+        shutil.copy2(source, target)
 
 
 def remove_shared_leftovers() -> None:

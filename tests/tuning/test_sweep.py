@@ -253,3 +253,25 @@ def test_cli_probe_prints_a_suggestion_and_writes_the_plot(small_split, tmp_path
     summary = json.loads((out / "probe.json").read_text())
     assert f"suggested learning rate: {summary['suggestion']:.3g}" in result.output
     assert "<svg" in (out / "probe.html").read_text(encoding="utf-8")
+
+
+def test_a_sweep_whose_runs_all_fail_keeps_the_previous_best(small_split, tmp_path):
+    from ..test_model import tree_bytes
+
+    out = tmp_path / "sweep"
+    good = sweep(small_split["train"], dev=small_split["dev"], optimizers="sgd", learning_rates=[0.3], workers=1,
+                 options=SMALL)
+    good.save(out)
+    before = tree_bytes(out / "best")
+    failed = sweep(small_split["train"], dev=small_split["dev"], optimizers="sgd", learning_rates=[OVERFLOW_RATE],
+                   workers=1, options=SMALL)
+    assert failed.best is None and failed.model is None
+    failed.save(out)
+    assert failed.kept_previous_best and tree_bytes(out / "best") == before
+    saved = json.loads((out / "sweep.json").read_text())
+    assert saved["best_run"] is None and saved["best_kept_from_previous_sweep"] is True
+    assert rows_of(out / "sweep.csv")[0]["status"] == "diverged at epoch 1"
+    open_model(out / "best")  # still a complete model
+    # and a sweep into a fresh folder whose runs all fail writes no best/
+    failed.save(tmp_path / "fresh")
+    assert not (tmp_path / "fresh" / "best").exists() and not failed.kept_previous_best
