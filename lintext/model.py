@@ -23,17 +23,18 @@ from __future__ import annotations
 
 import json
 import os
-import zipfile
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
 
 from . import __version__
+from .arrays import read_npz
 from .confidence import probabilities as scaled_softmax
 from .errors import LinTextError, ModelFileError
 from .engine.options import upgrade_training_json
-from .files import atomic_directory, json_default
+from .files import atomic_directory, json_text
+from .model_check import check_model_json
 from .text.featurizer import Featurizer
 
 FORMAT_VERSION = 1
@@ -132,43 +133,48 @@ class Model:
         return atomic_directory(target, lambda tmp: (self._write(tmp), extra and extra(tmp)), kind="model", force=force)
 
     def _write(self, folder: Path) -> None:
-        with open(folder / "model.json", "w", encoding="utf-8") as fh:
-            json.dump(self.to_json(), fh, indent=2, ensure_ascii=False, allow_nan=False, default=json_default)
-            fh.write("\n")
+        try:
+            (folder / "model.json").write_bytes(json_text(self.to_json()).encode("utf-8"))
+            self.featurizer.save_vocabulary(folder / "vocabulary.tsv")
+        except UnicodeEncodeError as exc:  # only from texts given to the Python API: the readers refuse them
+            raise LinTextError(f"cannot write the model: {exc.object[exc.start:exc.end]!r} is a lone surrogate, "
+                               "not text; remove it from the training texts or labels") from None
         np.savez(folder / "weights.npz", coef=self.coef, intercept=self.intercept)
-        self.featurizer.save_vocabulary(folder / "vocabulary.tsv")
         if self.feature_stats is not None:
             np.savez(folder / "feature_stats.npz", **{k: np.asarray(self.feature_stats[k]) for k in STAT_NAMES})
 
     @classmethod
     def load(cls, path: str | os.PathLike) -> "Model":
-        """Read and validate a model directory; a wrong field, shape or dtype raises ModelFileError."""
+        """Read and validate a model directory; a wrong field, shape or dtype raises ModelFileError.
+
+        Every field of ``model.json`` is checked by type and range first
+        (:mod:`lintext.model_check`), array headers and sizes before the arrays are read
+        (:mod:`lintext.arrays`), and weights whose scores would overflow are refused.
+        """
         folder = Path(path)
         if not folder.is_dir():
             raise ModelFileError(folder, "no such model directory")
         meta = _read_json(folder / "model.json")
-        version = meta.get("format_version")
-        if not isinstance(version, int):
-            raise ModelFileError(folder / "model.json", "field 'format_version' is missing or not an integer")
+        check_model_json(meta, folder / "model.json", FORMAT_VERSION)
+        version = meta["format_version"]
         if version > FORMAT_VERSION:
             raise ModelFileError(
                 folder / "model.json",
                 f"model format version {version} is newer than this lintext ({__version__}) reads ({FORMAT_VERSION}); upgrade lintext",
             )
-        labels = meta.get("labels")
-        if not isinstance(labels, list) or len(labels) < 2 or not all(isinstance(x, str) for x in labels) or len(set(labels)) != len(labels):
-            raise ModelFileError(folder / "model.json", "field 'labels' must be a list of at least two distinct strings")
-        loss = meta.get("loss")
-        if loss not in ("softmax", "hinge"):
-            raise ModelFileError(folder / "model.json", f"field 'loss' must be 'softmax' or 'hinge', not {loss!r}")
-        if not isinstance(meta.get("featurizer"), dict):
-            raise ModelFileError(folder / "model.json", "field 'featurizer' is missing")
+        labels, loss = meta["labels"], meta["loss"]  # checked by check_model_json, as is every field read below
         try:
             featurizer = Featurizer.load(meta["featurizer"], folder / "vocabulary.tsv")
+        except ModelFileError:
+            raise  # it names vocabulary.tsv and the line
         except LinTextError as exc:
             raise ModelFileError(folder / "model.json", f"field 'featurizer': {exc}") from None
         n_features, n_labels = featurizer.n_features, len(labels)
+        if meta.get("n_features", n_features) != n_features:
+            raise ModelFileError(folder / "model.json", f"field 'n_features' is {meta['n_features']} but the "
+                                                        f"featurizer has {n_features} columns")
         arrays = _read_npz(folder / "weights.npz", {"coef": (n_features, n_labels), "intercept": (n_labels,)})
+        _check_scores_are_finite(folder / "weights.npz", arrays["coef"], arrays["intercept"])
         stats = None
         if (folder / "feature_stats.npz").exists():
             stats = _read_npz(folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES}, finite=False, kinds="fi")
@@ -219,29 +225,30 @@ def _read_json(path: Path) -> dict:
         raise ModelFileError(path, f"not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
     except UnicodeDecodeError:
         raise ModelFileError(path, "not valid UTF-8") from None
+    except ValueError:  # an integer of more than 4300 digits
+        raise ModelFileError(path, "not valid JSON (a number too long to read)") from None
+    except RecursionError:
+        raise ModelFileError(path, "not valid JSON (nested too deeply)") from None
+    except OSError as exc:
+        raise ModelFileError(path, f"cannot be read ({exc.strerror or exc})") from None
     if not isinstance(data, dict):
         raise ModelFileError(path, "expected a JSON object")
     return data
 
 
 def _read_npz(path: Path, shapes: dict, finite: bool = True, kinds: str = "f") -> dict:
-    """Read named arrays with ``allow_pickle=False``, checking shape, dtype kind (``f`` float, ``i`` integer)."""
-    if not path.is_file():
-        raise ModelFileError(path, "file is missing")
-    try:
-        with np.load(path, allow_pickle=False) as archive:
-            arrays = {name: archive[name] for name in shapes if name in archive.files}
-    except (zipfile.BadZipFile, ValueError, EOFError, OSError, KeyError) as exc:
-        raise ModelFileError(path, f"not a readable NumPy archive ({type(exc).__name__}: {exc})") from None
-    for name, shape in shapes.items():
-        if name not in arrays:
-            raise ModelFileError(path, f"array {name!r} is missing")
-        array = arrays[name]
-        if array.dtype.kind not in kinds or array.dtype.itemsize not in (4, 8):
-            expected = " or ".join({"f": "float32/float64", "i": "int32/int64"}[k] for k in kinds)
-            raise ModelFileError(path, f"array {name!r} has dtype {array.dtype}, expected {expected}")
-        if array.shape != shape:
-            raise ModelFileError(path, f"array {name!r} has shape {array.shape}, expected {shape}")
-        if finite and not np.isfinite(array).all():
-            raise ModelFileError(path, f"array {name!r} holds non-finite values")
-    return arrays
+    """Read named arrays, every header and size checked before reading (:func:`lintext.arrays.read_npz`)."""
+    return read_npz(path, shapes, kinds=kinds, finite=finite)
+
+
+# Largest weight or bias a model may hold: far above anything training produces (it stops
+# on an exploding loss), far below where sums of products of features overflow float64.
+WEIGHT_LIMIT = 1e100
+
+
+def _check_scores_are_finite(path: Path, coef: np.ndarray, intercept: np.ndarray) -> None:
+    """Refuse weights whose scores would overflow (and predict NaN probabilities)."""
+    largest = max(float(np.abs(coef).max(initial=0.0)), float(np.abs(intercept).max(initial=0.0)))
+    if largest > WEIGHT_LIMIT:
+        raise ModelFileError(path, f"weights as large as {largest:.3g} (above {WEIGHT_LIMIT:g}) would give "
+                                   "non-finite scores; the file is damaged or not from lintext")

@@ -14,9 +14,9 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "lintext"
 LAYERS = [
-    {"lintext", "errors", "files", "outputs", "resources"},
+    {"lintext", "errors", "files", "outputs", "resources", "arrays"},
     {"text", "engine"},
-    {"model", "confidence"},
+    {"model", "model_check", "confidence"},
     {"evidence", "explanation", "pipeline"},
     {"report"},
     {"tuning"},

@@ -115,6 +115,14 @@ def command(func):
             raise typer.Exit(128 + signal.SIGPIPE) from None
         except (typer.Exit, typer.Abort):
             raise
+        except OSError as exc:  # one that no reader or writer named: the file is still at fault, not lintext
+            if os.environ.get("LINTEXT_DEBUG"):
+                raise
+            if not exc.filename:
+                err.print(f"internal error: {type(exc).__name__}: {exc}", markup=False, soft_wrap=True)
+                raise typer.Exit(1) from None
+            err.print(f"error: {exc.filename}: {exc.strerror or exc}", markup=False, soft_wrap=True)
+            raise typer.Exit(2) from None
         except Exception as exc:  # an internal fault, not bad input
             if os.environ.get("LINTEXT_DEBUG"):
                 raise

@@ -284,18 +284,28 @@ class Featurizer:
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(vocabulary_path, f"featurizer state is incomplete or wrong: {exc}") from None
         names, index, df = _read_vocabulary(Path(vocabulary_path))
+        if len(df) and (df.min() < 0 or df.max() > n_documents):
+            line = int(np.flatnonzero((df < 0) | (df > n_documents))[0]) + 2
+            raise ModelFileError(vocabulary_path, f"line {line}: document frequency {df[line - 2]} outside 0..{n_documents} "
+                                                  "(the number of training documents)")
         self = cls(config, n_jobs=n_jobs)
         self.n_documents = n_documents
         if config.hashing:
             width = config.hash_space
             if len(index) and (index.min() < 0 or index.max() >= width):
                 raise ModelFileError(vocabulary_path, f"column index outside 0..{width - 1}")
+            if len(np.unique(index)) != len(index):
+                raise ModelFileError(vocabulary_path, "a column appears twice")
             self.used_columns = np.sort(index)
             self.document_frequency = np.zeros(width, dtype=np.int64)
             self.document_frequency[index] = df
             return self
         if not np.array_equal(np.sort(index), np.arange(len(index))):
             raise ModelFileError(vocabulary_path, "columns must be 0..n-1, each once")
+        if len(set(names)) != len(names):
+            seen: set = set()
+            line = next(i for i, name in enumerate(names) if name in seen or seen.add(name)) + 2
+            raise ModelFileError(vocabulary_path, f"line {line}: feature {names[line - 2]!r} appears twice")
         order = np.argsort(index)
         self.feature_names = [names[i] for i in order]
         self.document_frequency = df[order]
@@ -303,6 +313,8 @@ class Featurizer:
         n_word = int((~is_char).sum())
         if is_char[:n_word].any() or (config.char_ngrams is None and n_word != len(index)):
             raise ModelFileError(vocabulary_path, "word and character features are out of order")
+        if config.char_ngrams is not None and n_word == len(index):
+            raise ModelFileError(vocabulary_path, "the configuration has character n-grams but the vocabulary has none")
         self._n_word = n_word
         return self
 
@@ -367,20 +379,30 @@ def _read_vocabulary(path: Path):
     if not path.is_file():
         raise ModelFileError(path, "vocabulary file is missing")
     names, index, df = [], [], []
-    with open(path, encoding="utf-8", newline="\n") as fh:
-        header = fh.readline().rstrip("\n")
-        if header != VOCAB_HEADER and header not in OLD_VOCAB_HEADERS:
-            raise ModelFileError(path, f"line 1: expected the header {VOCAB_HEADER!r}")
-        for number, line in enumerate(fh, start=2):
-            parts = line.rstrip("\n").split("\t")
-            if len(parts) != 3:
-                raise ModelFileError(path, f"line {number}: expected 3 tab-separated fields, found {len(parts)}")
-            try:
-                index.append(int(parts[1]))
-                df.append(int(parts[2]))
-            except ValueError:
-                raise ModelFileError(path, f"line {number}: column and document frequency must be integers") from None
-            names.append(_unescape(parts[0]))
+    number = 1
+    try:
+        with open(path, "rb") as fh:
+            header = fh.readline().rstrip(b"\n")
+            if header.decode("utf-8", "replace") != VOCAB_HEADER and header.decode("utf-8", "replace") not in OLD_VOCAB_HEADERS:
+                raise ModelFileError(path, f"line 1: expected the header {VOCAB_HEADER!r}")
+            for number, raw in enumerate(fh, start=2):
+                parts = raw.rstrip(b"\n").decode("utf-8").split("\t")
+                if len(parts) != 3:
+                    raise ModelFileError(path, f"line {number}: expected 3 tab-separated fields, found {len(parts)}")
+                try:
+                    column, frequency = int(parts[1]), int(parts[2])
+                except ValueError:
+                    raise ModelFileError(path, f"line {number}: column and document frequency must be integers") from None
+                for what, value in (("column", column), ("document frequency", frequency)):
+                    if not 0 <= value < 2**62:
+                        raise ModelFileError(path, f"line {number}: {what} {str(value)[:20]} out of range")
+                index.append(column)
+                df.append(frequency)
+                names.append(_unescape(parts[0]))
+    except UnicodeDecodeError:
+        raise ModelFileError(path, f"line {number}: not valid UTF-8") from None
+    except OSError as exc:
+        raise ModelFileError(path, f"cannot be read ({exc.strerror or exc})") from None
     return names, np.asarray(index, dtype=np.int64), np.asarray(df, dtype=np.int64)
 
 

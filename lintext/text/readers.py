@@ -174,24 +174,48 @@ def iter_chunks(path, chunk_size: int = 20000, reader: ReaderOptions | None = No
 
 
 def _decoded_lines(path: Path) -> Iterator[str]:
-    """Lines of a UTF-8 file (a BOM is dropped); invalid bytes name the line and byte offset."""
-    with open(path, "rb") as fh:
-        offset = 0
-        for number, raw in enumerate(fh, start=1):
-            try:
-                line = raw.decode("utf-8")
-            except UnicodeDecodeError as exc:
-                raise InputError(
-                    path, f"invalid UTF-8 byte 0x{raw[exc.start]:02x} at byte offset {offset + exc.start}", line=number
-                ) from None
-            if number == 1 and line.startswith("\ufeff"):
-                line = line[1:]
-            offset += len(raw)
-            yield line
+    """Lines of a UTF-8 file (a BOM is dropped); invalid bytes name the line and byte offset,
+    a failed read (permission, I/O error) the line it stopped at."""
+    number = 0
+    try:
+        with open(path, "rb") as fh:
+            offset = 0
+            for number, raw in enumerate(fh, start=1):
+                try:
+                    line = raw.decode("utf-8")
+                except UnicodeDecodeError as exc:
+                    if number == 1 and raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+                        raise InputError(path, "starts with a UTF-16 byte-order mark; lintext reads UTF-8 "
+                                               "(convert it, e.g. iconv -f UTF-16 -t UTF-8)", line=1) from None
+                    raise InputError(
+                        path, f"invalid UTF-8 byte 0x{raw[exc.start]:02x} at byte offset {offset + exc.start}", line=number
+                    ) from None
+                if number == 1 and line.startswith("\ufeff"):
+                    line = line[1:]
+                offset += len(raw)
+                yield line
+    except OSError as exc:
+        raise InputError(path, f"cannot be read ({_reason(exc)})", line=number + 1 if number else None) from None
+
+
+def _reason(exc: OSError) -> str:
+    return exc.strerror or str(exc) or type(exc).__name__
+
+
+def _unwritable(path: Path, value: str, what: str, where: dict) -> None:
+    """Refuse a string that cannot be written back as UTF-8: a lone surrogate from a JSON escape."""
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise InputError(path, f"{what} holds a lone surrogate (\\u{ord(value[exc.start]):04x}) at character {exc.start + 1}; "
+                               "it is not text and cannot be written as UTF-8", **where) from None
 
 
 def _read_text_file(path: Path) -> str:
-    raw = path.read_bytes()
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError(path, f"cannot be read ({_reason(exc)})") from None
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -204,12 +228,19 @@ def _read_text_file(path: Path) -> str:
 
 
 def _iter_folder(root: Path) -> Iterator[Record]:
-    labels = sorted(d for d in root.iterdir() if d.is_dir() and not d.name.startswith("."))
+    labels = sorted(d for d in _entries(root) if d.is_dir() and not d.name.startswith("."))
     if not labels:
         raise InputError(root, "folder has no label sub-folders (expected one sub-folder per label)")
     for label_dir in labels:
-        for doc in sorted(f for f in label_dir.iterdir() if f.is_file() and not f.name.startswith(".")):
+        for doc in sorted(f for f in _entries(label_dir) if f.is_file() and not f.name.startswith(".")):
             yield Record(_read_text_file(doc), label_dir.name, str(doc))
+
+
+def _entries(folder: Path) -> list[Path]:
+    try:
+        return list(folder.iterdir())
+    except OSError as exc:
+        raise InputError(folder, f"cannot be listed ({_reason(exc)})") from None
 
 
 def _check_label(label, path: Path, where: dict) -> str:
@@ -262,6 +293,10 @@ def _iter_jsonl(path: Path, text_column: str, label_column: str, require_labels:
             obj = json.loads(line)
         except json.JSONDecodeError as exc:
             raise InputError(path, f"malformed JSON at column {exc.colno}: {exc.msg}", **where) from None
+        except ValueError:  # Python refuses integers of more than 4300 digits
+            raise InputError(path, "malformed JSON: a number too long to read", **where) from None
+        except RecursionError:
+            raise InputError(path, "malformed JSON: nested too deeply", **where) from None
         if not isinstance(obj, dict):
             raise InputError(path, f"expected a JSON object, found {type(obj).__name__}", **where)
         if text_column not in obj:
@@ -269,8 +304,10 @@ def _iter_jsonl(path: Path, text_column: str, label_column: str, require_labels:
         text = obj[text_column]
         if not isinstance(text, str):
             raise InputError(path, f"field {text_column!r} must be a string, not {type(text).__name__}", **where)
+        _unwritable(path, text, f"field {text_column!r}", where)
         if label_column in obj:
             label = _check_label(obj[label_column], path, where)
+            _unwritable(path, label, f"field {label_column!r}", where)
         elif require_labels:
             raise InputError(path, f"no field {label_column!r}", **where)
         else:
