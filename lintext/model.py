@@ -35,6 +35,7 @@ from .errors import LinTextError, ModelFileError
 from .engine.options import upgrade_training_json
 from .files import atomic_directory, json_text
 from .model_check import check_model_json
+from .model_tables import CONFUSION_FILE, join_confusions, split_confusions
 from .text.featurizer import Featurizer
 
 FORMAT_VERSION = 1
@@ -134,11 +135,14 @@ class Model:
 
     def _write(self, folder: Path) -> None:
         try:
-            (folder / "model.json").write_bytes(json_text(self.to_json()).encode("utf-8"))
+            meta, tables = split_confusions(self.to_json())  # large tables go beside model.json
+            (folder / "model.json").write_bytes(json_text(meta).encode("utf-8"))
             self.featurizer.save_vocabulary(folder / "vocabulary.tsv")
         except UnicodeEncodeError as exc:  # only from texts given to the Python API: the readers refuse them
             raise LinTextError(f"cannot write the model: {exc.object[exc.start:exc.end]!r} is a lone surrogate, "
                                "not text; remove it from the training texts or labels") from None
+        if tables:
+            np.savez(folder / CONFUSION_FILE, **tables)
         np.savez(folder / "weights.npz", coef=self.coef, intercept=self.intercept)
         if self.feature_stats is not None:
             np.savez(folder / "feature_stats.npz", **{k: np.asarray(self.feature_stats[k]) for k in STAT_NAMES})
@@ -183,6 +187,7 @@ class Model:
                 if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features", "calibration"}}
         if isinstance(info.get("training"), dict):
             info["training"] = upgrade_training_json(info["training"])
+        join_confusions(folder, info, n_labels)
         model = cls(featurizer, arrays["coef"], arrays["intercept"], labels, loss, info, stats, calibration)
         model.path = folder  # named by errors about the directory
         return model
@@ -248,7 +253,7 @@ WEIGHT_LIMIT = 1e100
 
 def _check_scores_are_finite(path: Path, coef: np.ndarray, intercept: np.ndarray) -> None:
     """Refuse weights whose scores would overflow (and predict NaN probabilities)."""
-    largest = max(float(np.abs(coef).max(initial=0.0)), float(np.abs(intercept).max(initial=0.0)))
+    largest = max((max(-float(a.min()), float(a.max())) for a in (coef, intercept) if a.size), default=0.0)
     if largest > WEIGHT_LIMIT:
         raise ModelFileError(path, f"weights as large as {largest:.3g} (above {WEIGHT_LIMIT:g}) would give "
                                    "non-finite scores; the file is damaged or not from lintext")

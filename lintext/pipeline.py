@@ -17,6 +17,7 @@ import scipy.sparse as sp
 from sklearn.metrics import accuracy_score, confusion_matrix, f1_score, precision_recall_fscore_support
 
 from . import confidence
+from .engine.footprint import check_fits
 from .engine.options import TrainOptions
 from .engine.trainer import fit
 from .errors import ConfigError
@@ -71,12 +72,13 @@ class PreparedData:
 
 def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
                  seed: int = 0, reader: ReaderOptions | None = None, n_jobs: int = 1,
-                 progress: Progress | None = None) -> PreparedData:
+                 progress: Progress | None = None, options: TrainOptions | None = None) -> PreparedData:
     """Read ``data``, hold out a dev set and featurize once.
 
     The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
     seeded by ``seed`` (none when ``dev_fraction`` is 0). ``description`` is the ``data``
-    part of a model's ``info``.
+    part of a model's ``info``. With ``options``, a training run that cannot fit in memory
+    is refused before featurizing (hashed space) or right after (vocabulary), never midway.
     """
     report = progress or (lambda event: None)
     fconfig = featurizer_config(featurizer)
@@ -91,10 +93,14 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
     else:
         train_set, dev_set = corpus, None
     labels = train_set.label_names
+    if options is not None and fconfig.hashing:  # the columns are known before featurizing
+        check_fits(fconfig.hash_space, len(labels), options, fconfig.hash_space, data, featurizing=True)
     report({"stage": "featurizing", "documents": len(train_set)})
     started = time.perf_counter()
     feat = Featurizer(fconfig, n_jobs=n_jobs)
     X = feat.fit_transform(train_set.texts).tocsr()
+    if options is not None and not fconfig.hashing:
+        check_fits(X.shape[1], len(labels), options, None, getattr(data, "path", data))
     X_dev = feat.transform(dev_set.texts).tocsr() if dev_set is not None else None
     description = {
         "train": str(getattr(data, "path", data)),
@@ -140,7 +146,7 @@ def build_model(
     """
     report = progress or (lambda event: None)
     topts = TrainOptions.from_mapping(options).validate()
-    prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report)
+    prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report, options=topts)
     result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
                  progress=lambda row: report({"stage": "epoch", **row}))
     info = {

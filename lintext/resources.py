@@ -90,14 +90,20 @@ def size_text(n_bytes: float) -> str:
     return f"{value:.0f} bytes" if unit == "bytes" else f"{value:.3g} {unit}"
 
 
+def memory_shortfall(n_bytes: float) -> int | None:
+    """The memory available when it is less than ``n_bytes``, else None (also when it cannot be told)."""
+    available = available_memory()
+    return available if available is not None and n_bytes > available else None
+
+
 def require_memory(n_bytes: float, what: str, option: str, value, advice: str) -> None:
     """Refuse (ConfigError naming ``option``) when ``n_bytes`` exceed the memory available.
 
     ``what`` says what needs the memory; ``advice`` what to change. Nothing is checked when
     the available memory cannot be told.
     """
-    available = available_memory()
-    if available is not None and n_bytes > available:
+    available = memory_shortfall(n_bytes)
+    if available is not None:
         raise ConfigError(option, value, f"{what} needs about {size_text(n_bytes)} but {size_text(available)} "
                                          f"of memory is available; {advice}")
 

@@ -16,7 +16,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "lintext"
 LAYERS = [
     {"lintext", "errors", "files", "outputs", "resources", "arrays"},
     {"text", "engine"},
-    {"model", "model_check", "confidence"},
+    {"model", "model_check", "model_tables", "confidence"},
     {"evidence", "explanation", "pipeline"},
     {"report"},
     {"tuning"},

@@ -34,8 +34,8 @@ def tree_bytes(folder: Path) -> dict:
 
 def test_files_and_fields(trained):
     model, path, _ = trained
-    assert sorted(p.name for p in path.iterdir()) == [".lintext.json", "feature_stats.npz", "model.json", "vocabulary.tsv",
-                                                      "weights.npz"]
+    assert sorted(p.name for p in path.iterdir()) == [".lintext.json", "confusion.npz", "feature_stats.npz", "model.json",
+                                                      "vocabulary.tsv", "weights.npz"]
     meta = json.loads((path / "model.json").read_text())
     assert meta["format_version"] == FORMAT_VERSION and meta["labels"] == ["billing", "outage", "water"]
     assert meta["training"]["optimizer"] == model.info["training"]["optimizer"]

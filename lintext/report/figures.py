@@ -12,6 +12,7 @@ from __future__ import annotations
 import io
 import math
 import re
+import warnings
 
 import matplotlib as mpl
 import numpy as np
@@ -94,7 +95,10 @@ def _attr(text: str) -> str:
 def render(build, prefix: str, title: str, *args, **kwargs) -> str | None:
     """``build(*args, **kwargs)`` drawn in the report's style and returned as inline SVG
     (``None`` when ``build`` returns ``None``: nothing to show)."""
-    with mpl.rc_context(STYLE):
+    with mpl.rc_context(STYLE), warnings.catch_warnings():
+        # Labels in scripts the measuring font lacks (Japanese, emoji) would warn once per glyph;
+        # the SVG keeps them as text (svg.fonttype none), and the browser draws them with its fonts.
+        warnings.filterwarnings("ignore", message=r"Glyph \d+ .*missing from", category=UserWarning)
         fig = build(*args, **kwargs)
         if fig is None:
             return None

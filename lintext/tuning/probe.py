@@ -220,8 +220,8 @@ def probe(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     looks at dev rows), so it sees the rows a ``train`` run with the same options trains on.
     ``probe_options`` go to :func:`probe_learning_rate`.
     """
-    options = TrainOptions.from_mapping(options)
-    prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, reader, progress=progress)
+    options = TrainOptions.from_mapping(options).validate()
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, reader, progress=progress, options=options)
     result = probe_learning_rate(prepared.X, prepared.y, len(prepared.labels), options, progress=progress, **probe_options)
     result.settings["data"] = prepared.description
     return result

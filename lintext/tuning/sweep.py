@@ -43,6 +43,7 @@ import scipy.sparse as sp
 from joblib import Parallel, delayed, parallel_config
 
 from ..engine.optimizers import STEP_OPTIMIZERS
+from ..engine.footprint import training_bytes, workers_that_fit
 from ..engine.options import TrainOptions
 from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
@@ -254,8 +255,11 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     jobs = capped_processes(workers, cap=len(grid))
     if dev is None and not dev_fraction:
         raise ConfigError("--dev-fraction", dev_fraction, "a sweep ranks its runs on dev data; give --dev FILE or a fraction above 0")
-    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report)
+    heaviest = max(grid, key=lambda run: training_bytes(1, 1, run))  # refused up front if even it alone cannot fit
+    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report,
+                            options=heaviest)
     n_labels = len(prepared.labels)
+    jobs = workers_that_fit(jobs, prepared.X.shape[1], n_labels, heaviest)  # as many runs at once as fit in memory
     started = time.perf_counter()
     found: dict[int, tuple[dict, list]] = {}
     remove_shared_leftovers()
