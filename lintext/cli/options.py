@@ -117,14 +117,14 @@ def _featurizer(ngrams, char_ngrams, min_df, max_df, max_features, weighting, no
 
 
 featurizer_options = _group("featurizer", [
-    ("ngrams", Annotated[str, typer.Option("--ngrams", help="Word n-gram range, e.g. 1-2.")], "-".join(map(str, _FCONFIG.ngrams))),
+    ("ngrams", Annotated[str, typer.Option("--ngrams", metavar="LOW-HIGH", help="Word n-gram range, e.g. 1-2.")], "-".join(map(str, _FCONFIG.ngrams))),
     ("char_ngrams", Annotated[Optional[str], typer.Option(
-        "--char-ngrams", help="Character n-grams inside words, e.g. 3-5 (off by default).")], None),
+        "--char-ngrams", metavar="LOW-HIGH", help="Character n-grams inside words, e.g. 3-5 (off by default).")], None),
     ("min_df", Annotated[str, typer.Option(
-        "--min-df", help="Keep features in at least this many documents (or this share, if written with a point).")],
+        "--min-df", metavar="NUMBER", help="Keep features in at least this many documents (or this share, if written with a point).")],
      str(_FCONFIG.min_df)),
     ("max_df", Annotated[str, typer.Option(
-        "--max-df", help="Drop features in more than this share of documents (or count, if a whole number).")],
+        "--max-df", metavar="NUMBER", help="Drop features in more than this share of documents (or count, if a whole number).")],
      str(_FCONFIG.max_df)),
     ("max_features", Annotated[Optional[int], typer.Option("--max-features", help="Keep only the most frequent features.")], None),
     ("weighting", Annotated[str, typer.Option("--weighting", help=f"{', '.join(WEIGHTINGS)} (log = 1 + ln count).")],

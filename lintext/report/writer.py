@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ConfigError, LinTextError
+from ..errors import ConfigError, LinTextError, OutputError
 from ..files import atomic_file, csv_value
 from ..model import Model, open_model
 from .pages import comparison_page, report_page
@@ -71,6 +71,9 @@ def write_report(model: Model, folder: str | os.PathLike, top: int = 10, rare_ro
     folder = Path(folder)
     if folder.exists() and not folder.is_dir():
         raise LinTextError(f"{folder}: exists and is not a directory")
+    for name in ("features.csv", "report.html"):  # both checked before either is replaced
+        if (folder / name).is_dir() or ((folder / name).exists() and not (folder / name).is_file()):
+            raise OutputError(folder / name, "is not a file; lintext writes its report there", option="")
     table = feature_table(model)
     html = report_html(model, top=top, rare_rows=rare_rows, title=title, table=table)
     features = write_features_csv(table, folder / "features.csv")

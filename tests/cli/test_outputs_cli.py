@@ -156,3 +156,37 @@ def test_help_shows_arguments_by_name_and_values_by_kind():
     assert "MODEL_DIR" in text and "DATA" in text and "--force" in text
     assert "<int>" not in text and "<float>" not in text and "{DATA}" not in text
     assert "INTEGER" not in text and "--top-labels N" in " ".join(text.split())
+
+
+def test_report_refuses_a_folder_in_place_of_report_html_before_writing(old_model):
+    (old_model / "report.html").mkdir()
+    result = run("report", old_model, "--quiet")
+    assert result.exit_code == 2
+    assert result.output.strip() == f"error: {old_model / 'report.html'}: is not a file; lintext writes its report there"
+    assert not (old_model / "features.csv").exists()  # nothing was written before the refusal
+
+
+def test_a_full_disk_names_the_output_and_keeps_the_old_model(tiny_csv, old_model, monkeypatch):
+    import errno
+
+    from lintext.text.featurizer import Featurizer
+
+    from ..test_outputs import tree
+
+    before = tree(old_model)
+
+    def full(self, path):  # the disk fills up while the new model is being written
+        raise OSError(errno.ENOSPC, "No space left on device", str(path))
+
+    monkeypatch.setattr(Featurizer, "save_vocabulary", full)
+    result = run("train", tiny_csv, "--out", old_model, "--epochs", "1", "--dev-fraction", "0", "--quiet")
+    assert result.exit_code == 2
+    assert result.output.strip() == f"error: --out {old_model}: No space left on device (while writing vocabulary.tsv)"
+    assert tree(old_model) == before
+    assert sorted(p.name for p in old_model.parent.iterdir() if p.name.startswith(".")) == []
+
+
+def test_a_batch_size_beyond_any_array_is_refused_before_work(tiny_csv, tmp_path):
+    result = run("train", tiny_csv, "--out", tmp_path / "m", "--batch-size", str(2**63))
+    assert result.exit_code == 2 and "--batch-size=9223372036854775808: must be at most 2147483648" in result.output
+    assert not (tmp_path / "m").exists()
