@@ -72,6 +72,8 @@ def _check(meta: dict, format_version: int) -> None:
         check_metrics(meta["metrics"], len(labels))
     if "explain" in meta:
         check_explain(meta["explain"])
+    if "dev_errors" in meta:
+        check_dev_errors(meta["dev_errors"])
     _optional(meta, "sweep", dict)
 
 
@@ -164,6 +166,27 @@ def check_explain(section) -> None:
         for i, grams in enumerate(hashed.get("ngrams", [])):
             if not isinstance(grams, list) or not all(isinstance(g, list) and g and isinstance(g[0], str) for g in grams):
                 raise FieldError(f"explain.hashed_ngrams.ngrams[{i}]", "must be a list of [n-gram, documents] pairs")
+
+
+def check_dev_errors(record) -> None:
+    """The dev errors recorded at training time (:func:`lintext.explanation.dev_errors`)."""
+    if not isinstance(record, dict):
+        raise FieldError("dev_errors", f"must be an object, not {_kind(record)}")
+    for name in ("documents", "errors", "hinge_on_rare"):
+        if name in record:
+            count(f"dev_errors.{name}", record[name], 0)
+    shown = record.get("shown", [])
+    if not isinstance(shown, list):
+        raise FieldError("dev_errors.shown", f"must be a list, not {_kind(shown)}")
+    for i, item in enumerate(shown):
+        where = f"dev_errors.shown[{i}]"
+        if not isinstance(item, dict):
+            raise FieldError(where, f"must be an object, not {_kind(item)}")
+        features = item.get("features", [])
+        if not isinstance(features, list) or not all(isinstance(f, dict) for f in features):
+            raise FieldError(f"{where}.features", "must be a list of objects")
+        for j, feature in enumerate(features):
+            _flat_numbers(f"{where}.features[{j}]", {k: v for k, v in feature.items() if not isinstance(v, bool)})
 
 
 # ---------------------------------------------------------------- small checks

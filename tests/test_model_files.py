@@ -72,6 +72,8 @@ JSON_CASES = [
     ("confusion", lambda m: m["metrics"]["dev"].__setitem__("confusion", [[1, 2]]), "field 'metrics.dev.confusion'"),
     ("explain", lambda m: m.__setitem__("explain", [1]), "field 'explain': must be an object"),
     ("n-features", lambda m: m.__setitem__("n_features", 3), "field 'n_features' is 3 but the featurizer has 324"),
+    ("dev-errors", lambda m: m.__setitem__("dev_errors", {"shown": [{"features": "many"}]}),
+     "field 'dev_errors.shown[0].features': must be a list of objects"),
 ]
 
 
