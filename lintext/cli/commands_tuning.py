@@ -13,6 +13,7 @@ from ..engine.options import TrainOptions
 from ..errors import LinTextError
 from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
+from ..tuning.ladder import DEFAULT_HIGHEST_RATE, DEFAULT_LOWEST_RATE, DEFAULT_STEPS_PER_RUNG
 from .app import command, out, show_progress, status
 from .display import Display, print_wide
 from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, featurizer_options, reader_options,
@@ -82,11 +83,15 @@ def sweep(
 @reader_options
 def probe(
     data: DataPath,
-    out_dir: Annotated[Optional[Path], typer.Option("--out", metavar="DIR", help="Folder for probe.csv, probe.json and probe.html (the plot); only a lintext probe there is replaced.")] = None,
-    steps: Annotated[int, typer.Option("--steps", help="Most steps; the learning rate grows geometrically over them.")] = 300,
-    min_lr: Annotated[float, typer.Option("--min-lr", help="Learning rate of the first step.")] = 1e-6,
-    max_lr: Annotated[float, typer.Option("--max-lr", help="Learning rate of the last step (the probe stops earlier on blow-up).")] = 10.0,
-    smoothing: Annotated[float, typer.Option("--smoothing", help="Factor of the moving average of the loss.")] = 0.98,
+    out_dir: Annotated[Optional[Path], typer.Option(
+        "--out", metavar="DIR", help="Folder for rungs.csv, probe.json and probe.html (the plot); only a lintext probe there is replaced.")] = None,
+    lowest_rate: Annotated[float, typer.Option(
+        "--lowest-rate", help="First rung of the ladder (rates 10^(k/4): 0.1, 0.178, 0.316, 0.562, 1, ...).")] = DEFAULT_LOWEST_RATE,
+    highest_rate: Annotated[float, typer.Option(
+        "--highest-rate", help="Last rung; the climb stops earlier once a rung's mean loss passes the untrained model's.")]
+    = DEFAULT_HIGHEST_RATE,
+    steps_per_rung: Annotated[int, typer.Option(
+        "--steps-per-rung", help="Steps (batches) at each rate; the rung's score is their mean loss.")] = DEFAULT_STEPS_PER_RUNG,
     dev: DevOpt = None,
     dev_fraction: DevFractionOpt = 0.1,
     reader: ReaderOptions = None,
@@ -95,11 +100,17 @@ def probe(
     force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
-    """Suggest a learning rate from one short run whose learning rate grows step by step (Smith's range test, 2017).
+    """Suggest a learning rate from one short run that climbs a ladder of rates (Smith's range test, 2017).
+
+    Each rung is held for --steps-per-rung steps and scored by its mean loss; the rung where the
+    loss stops improving is the upper bound, and the suggestion is two rungs (a factor of 3.16)
+    below it. When the loss has not risen by --highest-rate (still falling, or level within its
+    noise) there is no suggestion: raise --highest-rate.
 
     Example: lintext probe data/demo/train.csv --optimizer adam --out probes/adam
     """
     from ..outputs import check_output_folder
+    from ..report.probe_page import RUNG_COLUMNS, SUMMARY_KEYS, cell
     from ..tuning.probe import probe as run_probe
 
     if out_dir is not None:
@@ -107,17 +118,23 @@ def probe(
     display = Display(show_progress(quiet))
     try:
         result = run_probe(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
-                           reader=reader, progress=display, steps=steps, min_lr=min_lr, max_lr=max_lr, smoothing=smoothing)
+                           reader=reader, progress=display, lowest_rate=lowest_rate, highest_rate=highest_rate,
+                           steps_per_rung=steps_per_rung)
     finally:
         display.close()
-    last = result.learning_rates[-1]
-    out.print(f"{options.optimizer}: {len(result.learning_rates)} steps, learning rate {min_lr:g} to {last:.3g}; "
-              f"stopped: {result.stop_reason}", markup=False, soft_wrap=True)
-    if result.suggestion is None:
-        out.print("no suggestion: the smoothed loss never fell; try a larger --max-lr or more --steps", markup=False)
-    else:
-        out.print(f"suggested learning rate: {result.suggestion:.3g}", markup=False)
+    settings = result.settings
+    table = Table(title=f"{options.optimizer}, batch size {settings['batch_size']}: {len(result.learning_rates)} rungs "
+                        f"of {steps_per_rung} steps", box=box.SIMPLE_HEAD, pad_edge=False)
+    for column in RUNG_COLUMNS:
+        table.add_column(column, justify="right", no_wrap=True)
+    summary = result.summary()
+    for row in result.rungs():
+        low = row["rung"] - 1 == result.lowest_loss_rung
+        table.add_row(*[cell(column, row[column]) for column in RUNG_COLUMNS], style="bold" if low else None)
+    print_wide(table)
+    for key in SUMMARY_KEYS:
+        out.print(f"{key}: {cell(key, summary[key])}", markup=False, soft_wrap=True)
     if out_dir is not None:
         with status(f"Writing {out_dir}", quiet):
             where = result.save(out_dir, force=force)
-        out.print(f"plot and table written to {where}", markup=False, soft_wrap=True)
+        out.print(f"rungs.csv, probe.json and probe.html written to {where}", markup=False, soft_wrap=True)

@@ -2,7 +2,7 @@
 
 :class:`Display` is the ``progress`` callback every long library operation takes: a spinner
 while reading, featurizing or evaluating, then one bar over the epochs of a run, the runs of
-a sweep or the steps of a probe. It draws on the terminal only (see :func:`app.show_progress`).
+a sweep or the rungs of a probe. It draws on the terminal only (see :func:`app.show_progress`).
 """
 
 from __future__ import annotations
@@ -46,8 +46,8 @@ class Display:
             row = event["row"]
             self._bar("run", event["total"], event["done"], f"{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
         elif stage == "probe":
-            self._bar("step", event["steps"], event["step"],
-                      f"learning rate {event['learning_rate']:.3g}  loss {event['smoothed_loss']:.4f}")
+            self._bar("rung", event["rungs"], event["rung"],
+                      f"learning_rate {event['learning_rate']:.3g}  mean_loss {event['mean_loss']:.4f}")
 
     def _bar(self, unit: str, total: int, done: int, info: str) -> None:
         self._stop_spinner()

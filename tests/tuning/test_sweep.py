@@ -1,4 +1,4 @@
-"""Sweeps, the learning-rate probe and their commands.
+"""Sweeps and the sweep command (the probe: test_probe.py).
 
 Each check names its source: scikit-learn or SciPy as reference implementations, IEEE 754
 (float64's largest finite value), Python's mmap module, a brute-force measurement made in
@@ -14,7 +14,6 @@ import mmap
 
 import numpy as np
 import pytest
-import scipy.sparse as sp
 from scipy.special import softmax as scipy_softmax
 from sklearn.metrics import accuracy_score, f1_score, log_loss
 from typer.testing import CliRunner
@@ -22,10 +21,7 @@ from typer.testing import CliRunner
 import lintext.engine.kernels
 from lintext import ConfigError, open_model, read_corpus
 from lintext.cli import app
-from lintext.tuning.probe import probe_learning_rate, smoothing_lag
 from lintext.tuning.sweep import parse_learning_rates, parse_optimizers, sweep
-from lintext.engine.options import TrainOptions
-from lintext.engine.trainer import fit
 
 runner = CliRunner()
 # A learning rate that makes float64 overflow in the first epoch: after one step the weights
@@ -152,59 +148,6 @@ def test_sweep_needs_dev_data(small_split):
     assert info.value.option == "--dev-fraction"
 
 
-# --------------------------------------------------------------------------- probe
-
-
-def test_smoothing_lag_hand_worked():
-    # Bias-corrected average of two values with beta = 1/2: weights (1/2)/(3/4) = 2/3 on the
-    # newest (lag 0) and (1/4)/(3/4) = 1/3 on the one before (lag 1): mean lag 1/3.
-    assert smoothing_lag(0.5, 2) == pytest.approx(1 / 3)
-    assert smoothing_lag(0.5, 1) == 0.0
-    # Many values: the geometric weights (1 - b) b^s have mean lag b / (1 - b) = 49 for b = 0.98.
-    assert smoothing_lag(0.98, 5000) == pytest.approx(49.0)
-
-
-def synthetic_problem(n=2400, d=30, k=3, seed=0):
-    """Three overlapping Gaussian classes (so the best loss stays well above 0), rows scaled to norm 3."""
-    rng = np.random.default_rng(seed)
-    means = rng.normal(size=(k, d)) * 0.3
-    y = rng.integers(0, k, n)
-    X = means[y] + rng.normal(size=(n, d))
-    X *= 3.0 / np.linalg.norm(X, axis=1, keepdims=True)
-    return sp.csr_matrix(X), y
-
-
-@pytest.mark.parametrize("optimizer", ["sgd", "adam"])
-def test_probe_suggests_a_rate_among_the_best_by_brute_force(optimizer):
-    X, y = synthetic_problem()
-    batch, steps = 8, 300  # 300 steps of 8 rows: one pass over the 2400 rows
-    result = probe_learning_rate(X, y, 3, {"optimizer": optimizer, "batch_size": batch}, steps=steps)
-    # At zero weights every label has probability 1/3, so the first loss is ln 3 (hand-worked),
-    # and the bias-corrected average of one value is that value.
-    assert result.losses[0] == pytest.approx(math.log(3)) and result.smoothed[0] == pytest.approx(math.log(3))
-
-    # Brute force: train with each constant rate for the same 300 steps and measure the training
-    # loss with scikit-learn's log_loss. The useful range is the set of rates that achieve at
-    # least 90% of the largest loss reduction from ln 3 any rate achieves.
-    rates = 10.0 ** np.arange(-3, 1.01, 0.25)
-    final = []
-    for rate in rates:
-        run = fit(X, y, 3, options=TrainOptions(optimizer=optimizer, learning_rate=float(rate), batch_size=batch,
-                                                epochs=1, patience=0))
-        final.append(log_loss(y, scipy_softmax(np.asarray(X @ run.coef) + run.intercept, axis=1), labels=[0, 1, 2]))
-    final = np.array(final)
-    good = rates[final <= final.min() + 0.1 * (math.log(3) - final.min())]
-    assert rates[0] not in good and rates[-1] not in good  # the range is a proper part of the grid
-    assert result.suggestion is not None and good.min() <= result.suggestion <= good.max(), (result.suggestion, good)
-
-
-def test_probe_rejects_a_rule_without_learning_rate():
-    X, y = synthetic_problem(n=50)
-    with pytest.raises(ConfigError) as info:
-        probe_learning_rate(X, y, 3, {"optimizer": "lbfgs"})
-    assert info.value.option == "--optimizer"
-
-
 # --------------------------------------------------------------------------- commands
 
 
@@ -239,20 +182,6 @@ def test_cli_sweep_bad_list_exits_2_naming_option_and_value(small_split, tmp_pat
     lines = result.output.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith(f"error: {option}=") and shown in lines[0], result.output
     assert not (tmp_path / "x").exists()
-
-
-@pytest.mark.slow
-def test_cli_probe_prints_a_suggestion_and_writes_the_plot(small_split, tmp_path):
-    out = tmp_path / "probe"
-    result = run("probe", small_split["train"], "--dev", small_split["dev"], "--optimizer", "sgd", "--batch-size", 4,
-                 "--steps", 200, "--out", out)
-    assert result.exit_code == 0, result.output
-    assert "suggested learning rate: " in result.output
-    table = rows_of(out / "probe.csv")
-    assert 10 <= len(table) <= 200 and float(table[0]["learning_rate"]) == pytest.approx(1e-6)
-    summary = json.loads((out / "probe.json").read_text())
-    assert f"suggested learning rate: {summary['suggestion']:.3g}" in result.output
-    assert "<svg" in (out / "probe.html").read_text(encoding="utf-8")
 
 
 def test_a_sweep_whose_runs_all_fail_keeps_the_previous_best(small_split, tmp_path):
