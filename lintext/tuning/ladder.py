@@ -6,7 +6,8 @@ learning rate grows from too small to too large, read off where the loss stops i
 Smith takes that rate as the upper bound of the useful range and sets the lower bound to
 "1/3 or 1/4" of it; lintext suggests that lower bound as a constant learning rate.
 :mod:`lintext.tuning.probe` climbs the ladder; this module says what the ladder is and what
-its rungs mean (no engine, no data: the command line reads its defaults from here).
+its rungs mean (no engine, no data, not even NumPy: the command line reads its defaults
+from here without slowing its start).
 
 * **Rungs.** The rates ``10 ** (j / 4)`` (``..., 0.1, 0.178, 0.316, 0.562, 1, 1.78, ...``)
   from the lowest rate up to the highest, both rounded into the ladder (to a rung within 1 %,
@@ -76,8 +77,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 RUNGS_PER_DECADE = 4
 RUNGS_BELOW_UPPER = 2
 NOISE_MULTIPLE = 2.0
@@ -102,12 +101,14 @@ def ladder_rate(index: int) -> float:
     return float(10.0 ** (index / RUNGS_PER_DECADE))
 
 
-def ladder(lowest_rate: float, highest_rate: float) -> np.ndarray:
+def ladder(lowest_rate: float, highest_rate: float):
     """The ladder's rates from ``lowest_rate`` to ``highest_rate``, each end rounded into the ladder:
     to a rung within 1 % (so ``5.62`` typed for ``10 ** (3/4) = 5.6234`` is that rung), else inwards."""
     slack = RUNGS_PER_DECADE * math.log10(1 + RUNG_SLACK)
     first = math.ceil(RUNGS_PER_DECADE * math.log10(lowest_rate) - slack)
     last = math.floor(RUNGS_PER_DECADE * math.log10(highest_rate) + slack)
+    import numpy as np
+
     return np.array([ladder_rate(j) for j in range(first, last + 1)])
 
 
@@ -133,11 +134,11 @@ def read_ladder(means, errors, stopped: bool) -> tuple[str, int | None]:
     lowest : int or None
         Index of the rung with the lowest mean loss among the candidates (None when there is none).
     """
-    means, errors = np.asarray(means, dtype=np.float64), np.asarray(errors, dtype=np.float64)
+    means, errors = [float(m) for m in means], [float(e) for e in errors]
     usable = len(means) - 1 if stopped else len(means)
     if usable < 1:
         return "never-fell", None
-    low = int(np.argmin(means[:usable]))
+    low = min(range(usable), key=means.__getitem__)  # the first of equal lowest, as numpy.argmin
 
     def above(j: int, i: int) -> bool:
         return bool(means[j] - means[i] > NOISE_MULTIPLE * math.hypot(errors[j], errors[i]))
