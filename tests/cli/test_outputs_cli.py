@@ -45,7 +45,7 @@ def commands(data, model, out):
         "train": ["train", data, "--out", out, "--epochs", "1", "--quiet"],
         "sweep": ["sweep", data, "--out", out, "--optimizers", "sgd", "--learning-rates", "0.1", "--epochs", "1",
                   "--quiet"],
-        "probe": ["probe", data, "--out", out, "--steps", "10", "--quiet"],
+        "probe": ["probe", data, "--out", out, "--steps-per-rung", 10, "--quiet"],
         "predict": ["predict", model, data, "--out", out, "--quiet"],
         "compare": ["compare", model, "--out", out, "--quiet"],
     }
