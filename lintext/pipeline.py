@@ -14,13 +14,13 @@ from typing import Callable
 
 import numpy as np
 import scipy.sparse as sp
-from sklearn.metrics import accuracy_score, confusion_matrix, f1_score, precision_recall_fscore_support
 
 from . import confidence
 from .engine.footprint import check_fits
+from .engine.metrics import confusion_counts, label_scores, summary_scores
 from .engine.options import TrainOptions
 from .engine.trainer import fit
-from .errors import ConfigError
+from .errors import ConfigError, InputError
 from .evidence import training_extras
 from .explanation import dev_errors, require_calibration
 from .model import Model
@@ -187,46 +187,87 @@ def check_probability(option: str, value) -> float:
     return float(value)
 
 
-def evaluate(model: Model, data: str | os.PathLike | Corpus, reader: ReaderOptions | None = None,
-             summary_only: bool = False, target_accuracy: float | None = None) -> dict:
+UNKNOWN_LABELS = ("count", "skip")
+
+
+def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: ReaderOptions | None = None,
+             summary_only: bool = False, target_accuracy: float | None = None, unknown_labels: str = "count") -> dict:
     """Accuracy, macro- and weighted-F1, per-label precision/recall/F1/support and the confusion
     matrix; then calibration and routing numbers.
 
-    Labels in ``data`` that the model does not know raise InputError naming the record.
-    Metrics are scikit-learn's (``sklearn.metrics``). Unless ``summary_only``, also (see
-    :mod:`lintext.confidence`, 15 equal-width bins): ``ece`` and ``nll`` of the model's
-    probabilities (``None`` for a hinge model without calibration), ``ece_uncalibrated`` and
-    ``nll_uncalibrated`` of the plain softmax of the scores, ``temperature`` (``None`` without
-    calibration), ``reliability`` (``calibrated`` and ``uncalibrated`` bin tables) and
-    ``coverage`` (documents decided and correct per threshold of the model's probability).
-    ``target_accuracy`` (needs a calibrated model) adds ``target``, the lowest threshold whose
-    decided documents reach that accuracy.
+    The definitions are in :mod:`lintext.engine.metrics`: averages over the labels present in
+    the truth or the predictions (as ``sklearn.metrics.f1_score(average="macro")``), an
+    undefined precision or recall as ``None``.
+
+    Parameters
+    ----------
+    model : the model to score.
+    data : labelled file, folder, :class:`Corpus` or ``(texts, labels)``.
+    reader : how to read ``data``.
+    summary_only : only ``documents``, ``accuracy``, ``macro_f1``, ``weighted_f1``, ``averaged_over``.
+    target_accuracy : (needs a calibrated model) adds ``target``, the lowest threshold whose
+        decided documents reach that accuracy.
+    unknown_labels : what to do with documents whose label the model never saw: ``"count"``
+        them as errors (their label joins the averages with recall 0 and F1 0) or ``"skip"`` them.
+
+    Returns
+    -------
+    dict with, besides the scores, ``per_label`` (labels in the averages: ``precision``,
+    ``recall`` (``None`` when undefined), ``f1``, ``support``, ``predicted``, ``known``),
+    ``absent_labels`` (model labels neither true nor predicted in ``data``: left out of the
+    averages), ``unknown_labels`` (``{"handling", "documents", "labels": {label: count}}``),
+    ``empty_texts``, ``labels`` (rows and columns of ``confusion``: the model's labels, then
+    the unknown ones when counted) and ``confusion``. Then (see :mod:`lintext.confidence`, 15
+    equal-width bins, over the documents whose label the model knows): ``ece`` and ``nll`` of
+    the model's probabilities (``None`` for a hinge model without calibration),
+    ``ece_uncalibrated`` and ``nll_uncalibrated`` of the plain softmax of the scores,
+    ``temperature`` (``None`` without calibration), ``reliability`` (``calibrated`` and
+    ``uncalibrated`` bin tables) and ``coverage`` (documents decided and correct per threshold
+    of the model's probability).
     """
     if target_accuracy is not None:
         check_probability("--target-accuracy", target_accuracy)
         require_calibration(model, "--target-accuracy")
+    if unknown_labels not in UNKNOWN_LABELS:
+        raise ConfigError("unknown_labels", unknown_labels, f"choose one of {', '.join(UNKNOWN_LABELS)}")
     corpus = _corpus(data, reader, min_labels=1)
-    y_true = corpus.label_indices(model.labels)
-    scores = model.scores(corpus.texts)
-    y_pred = scores.argmax(axis=1)
-    every = np.arange(len(model.labels))
-    out = {
-        "documents": len(corpus),
-        "accuracy": float(accuracy_score(y_true, y_pred)),
-        "macro_f1": float(f1_score(y_true, y_pred, labels=every, average="macro", zero_division=0)),
-        "weighted_f1": float(f1_score(y_true, y_pred, labels=every, average="weighted", zero_division=0)),
-    }
+    known = set(model.labels)
+    unknown_counts: dict[str, int] = {}
+    for label in corpus.labels:
+        if label not in known:
+            unknown_counts[label] = unknown_counts.get(label, 0) + 1
+    if unknown_counts and unknown_labels == "skip":
+        corpus = corpus.subset([i for i, label in enumerate(corpus.labels) if label in known])
+        if len(corpus) == 0:
+            raise InputError(getattr(data, "path", data), "no document has a label the model knows "
+                             f"(the model's labels: {', '.join(model.labels)})")
+    names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
+    y_true = corpus.label_indices(names)
+    raw_scores = model.scores(corpus.texts)
+    y_pred = raw_scores.argmax(axis=1)
+    counts = confusion_counts(y_true, y_pred, len(names))
+    out = {"documents": len(corpus), **summary_scores(counts)}
     if summary_only:
         return out
-    p, r, f, s = precision_recall_fscore_support(y_true, y_pred, labels=every, zero_division=0)
+    scores = label_scores(counts)
+    number = lambda v: None if not np.isfinite(v) else float(v)  # noqa: E731  (undefined: None, null in JSON)
     out["per_label"] = {
-        name: {"precision": float(p[j]), "recall": float(r[j]), "f1": float(f[j]), "support": int(s[j])}
-        for j, name in enumerate(model.labels)
+        name: {"precision": number(scores["precision"][j]), "recall": number(scores["recall"][j]),
+               "f1": float(scores["f1"][j]), "support": int(scores["support"][j]),
+               "predicted": int(scores["predicted"][j]), "known": j < len(model.labels)}
+        for j, name in enumerate(names) if scores["present"][j]
     }
-    out["labels"] = list(model.labels)
-    out["confusion"] = confusion_matrix(y_true, y_pred, labels=every).tolist()
-    plain = confidence.summary(scores, y_true)
-    own = confidence.summary(scores, y_true, model.temperature) if model.calibration is not None else \
+    out["absent_labels"] = [name for j, name in enumerate(names) if not scores["present"][j]]
+    out["unknown_labels"] = {"handling": "counted as errors" if unknown_labels == "count" else "skipped",
+                             "documents": int(sum(unknown_counts.values())), "labels": dict(sorted(unknown_counts.items()))}
+    out["empty_texts"] = count_empty(corpus.texts)
+    out["labels"] = names
+    out["confusion"] = counts.tolist()
+    rows = y_true < len(model.labels)  # calibration needs labels the model knows
+    if not rows.any():
+        return out
+    plain = confidence.summary(raw_scores[rows], y_true[rows])
+    own = confidence.summary(raw_scores[rows], y_true[rows], model.temperature) if model.calibration is not None else \
         plain if model.has_probabilities else None
     out.update({
         "temperature": model.temperature,
@@ -239,6 +280,11 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus, reader: ReaderOptio
     if target_accuracy is not None:
         out["target"] = confidence.threshold_for_accuracy(own["confidence"], own["correct"], target_accuracy)
     return out
+
+
+def count_empty(texts) -> int:
+    """How many texts are empty or only white space (they get the bias's label, from no evidence)."""
+    return sum(1 for text in texts if not text.strip())
 
 
 def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None,

@@ -73,3 +73,32 @@ def small_split(tmp_path) -> dict:
         "dev": write_csv(tmp_path / "dev.csv", rows[90:105]),
         "test": write_csv(tmp_path / "test.csv", rows[105:]),
     }
+
+
+def many_label_rows(n_labels: int = 58, per_label: int = 30, group: int = 3, seed: int = 0) -> list[tuple[str, str]]:
+    """An invented corpus with many labels, confusable in groups of ``group``.
+
+    Each label has six words of its own, each group of labels six words it shares; a document
+    is two own words, two group words and two common words, so labels of one group are
+    confused with each other and seldom with the rest.
+    """
+    import random
+
+    rng = random.Random(seed)
+    syllables = "ka lo mi nu pe ra si to vu xe ba de fi go hu".split()
+
+    def word(k: int, kind: str) -> str:
+        return kind + "".join(syllables[(k // 15**p) % 15] for p in range(3))
+
+    common = [word(k, "c") for k in range(20)]
+    rows = []
+    for label in range(n_labels):
+        own = [word(label * 6 + k, "w") for k in range(6)]
+        shared = [word((label // group) * 6 + k, "g") for k in range(6)]
+        name = f"topic-{label:02d}"
+        for _ in range(per_label):
+            doc = rng.sample(own, 1) + rng.sample(shared, 3) + rng.sample(common, 2)
+            rng.shuffle(doc)
+            rows.append((" ".join(doc), name))
+    rng.shuffle(rows)
+    return rows

@@ -12,6 +12,7 @@ from typing import Annotated, Optional
 
 import typer
 from rich.table import Table
+from rich.text import Text
 
 from ..engine.options import TrainOptions
 from ..text.config import FeaturizerConfig
@@ -124,49 +125,57 @@ def predict(
 @reader_options
 def evaluate(
     model_dir: ModelPath,
-    data: Annotated[Path, typer.Argument(metavar="DATA", help="Labelled test data.")],
+    data: Annotated[Path, typer.Argument(metavar="DATA", help="Labelled test data (- for standard input, with --format).")],
     as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of tables.")] = False,
     target_accuracy: Annotated[Optional[float], typer.Option(
         "--target-accuracy", metavar="A",
         help="Find the lowest probability threshold whose decided documents reach this accuracy.")] = None,
+    skip_unknown: Annotated[bool, typer.Option(
+        "--skip-unknown-labels", help="Leave out documents whose label the model never saw (default: count them as errors).")] = False,
     reader: ReaderOptions = None,
     quiet: QuietOpt = False,
 ):
-    """Score a model on labelled data: accuracy, F1, per-label table, confusion matrix, calibration error and
+    """Score a model on labelled data: accuracy, F1, per-label table, confusions, calibration error and
     the share decided against accuracy for a range of probability thresholds.
 
     Example: lintext evaluate models/demo data/demo/test.csv --target-accuracy 0.97
     """
     from ..confidence import coverage_rows
+    from ..engine.metrics import AVERAGE_NOTE
     from ..model import open_model
     from ..pipeline import evaluate as evaluate_model
 
     model = open_model(model_dir)
     with status(f"Evaluating on {data}", quiet or as_json):
-        result = evaluate_model(model, data, reader, target_accuracy=target_accuracy)
-    rows = coverage_rows(result["coverage"]) if result["coverage"] else None
+        result = evaluate_model(model, data, reader, target_accuracy=target_accuracy,
+                                unknown_labels="skip" if skip_unknown else "count")
+    warn_about_inputs(result, quiet)
+    rows = coverage_rows(result["coverage"]) if result.get("coverage") else None
     if as_json:
-        keys = ("accuracy", "macro_f1", "weighted_f1", "per_label", "confusion", "labels", "documents",
-                "ece", "ece_uncalibrated", "nll", "nll_uncalibrated", "temperature")
-        extra = {"coverage": rows, **({"target": result["target"]} if "target" in result else {})}
+        keys = ("documents", "accuracy", "macro_f1", "weighted_f1", "averaged_over", "per_label", "absent_labels",
+                "unknown_labels", "empty_texts", "labels", "confusion")
+        extra = {k: result.get(k) for k in ("ece", "ece_uncalibrated", "nll", "nll_uncalibrated", "temperature")}
+        extra.update({"coverage": rows, **({"target": result["target"]} if "target" in result else {})})
         out.print_json(json.dumps({**{k: result[k] for k in keys}, **extra}))
         return
     out.print(f"{data}: {result['documents']} documents  accuracy {result['accuracy']:.4f}  "
-              f"macro-F1 {result['macro_f1']:.4f}  weighted-F1 {result['weighted_f1']:.4f}")
+              f"macro-F1 {result['macro_f1']:.4f}  weighted-F1 {result['weighted_f1']:.4f}  "
+              f"(averaged over {result['averaged_over']} labels)", markup=False, soft_wrap=True)
     table = Table(title="per label")
-    for col in ("label", "precision", "recall", "F1", "documents"):
+    for col in ("label", "precision", "recall", "F1", "documents", "predicted"):
         table.add_column(col, justify="left" if col == "label" else "right")
     for name, m in result["per_label"].items():
-        table.add_row(name, f"{m['precision']:.3f}", f"{m['recall']:.3f}", f"{m['f1']:.3f}", str(m["support"]))
+        table.add_row(Text(name + ("" if m["known"] else " (unknown to the model)")), _score(m["precision"]),
+                      _score(m["recall"]), f"{m['f1']:.3f}", str(m["support"]), str(m["predicted"]))
     out.print(table)
-    confusion = Table(title="confusion (rows: true label, columns: predicted)")
-    confusion.add_column("true \\ predicted")
-    for j in range(len(result["labels"])):
-        confusion.add_column(str(j), justify="right")
-    for i, name in enumerate(result["labels"]):
-        confusion.add_row(f"{i} {name}", *[str(v) for v in result["confusion"][i]])
-    out.print(confusion)
-    print_confidence(result, rows)
+    out.print(AVERAGE_NOTE, markup=False)
+    if result["absent_labels"]:
+        out.print(f"not in this data and never predicted (left out of the averages): {', '.join(result['absent_labels'])}",
+                  markup=False, soft_wrap=True)
+    print_confusions(result["confusion"], result["labels"])
+
+    if "temperature" in result:
+        print_confidence(result, rows)
 
 
 def print_confidence(result: dict, rows) -> None:
@@ -197,3 +206,46 @@ def print_confidence(result: dict, rows) -> None:
         out.print(f"accuracy {target['target']:g}: decide when the best probability is at least {target['threshold']:.4g} "
                   f"(predict --min-probability {target['threshold']!r}); {target['decided']} documents decided "
                   f"({target['coverage']:.1%}), accuracy on them {target['accuracy']:.4f}", markup=False, soft_wrap=True)
+
+
+PAIRS_SHOWN = 20
+MATRIX_MAX_LABELS = 12  # beyond this a matrix does not fit a terminal: the most confused pairs instead
+
+
+def _score(value) -> str:
+    return "—" if value is None else f"{value:.3f}"
+
+
+def warn_about_inputs(result: dict, quiet: bool) -> None:
+    """One line on stderr for documents with labels the model never saw and for empty texts."""
+    unknown = result.get("unknown_labels") or {}
+    if unknown.get("documents"):
+        labels = ", ".join(f"{k} ({v})" for k, v in unknown["labels"].items())
+        err.print(f"warning: {unknown['documents']} document(s) have a label the model never saw, {unknown['handling']}: "
+                  f"{labels}", markup=False, soft_wrap=True)
+    if result.get("empty_texts"):
+        err.print(f"warning: {result['empty_texts']} document(s) have an empty text (labelled from the biases alone)",
+                  markup=False, soft_wrap=True)
+
+
+def print_confusions(matrix, labels) -> None:
+    """The confusion matrix up to MATRIX_MAX_LABELS labels, else the most confused pairs."""
+    from ..engine.metrics import confused_pairs
+
+    if len(labels) <= MATRIX_MAX_LABELS:
+        confusion = Table(title="confusion (rows: true label, columns: predicted, numbered as the rows)")
+        confusion.add_column("true \\ predicted")
+        for j in range(len(labels)):
+            confusion.add_column(str(j), justify="right")
+        for i, name in enumerate(labels):
+            confusion.add_row(Text(f"{i} {name}"), *[str(v) for v in matrix[i]])
+        out.print(confusion)
+        return
+    pairs = confused_pairs(matrix, labels)
+    grid = Table(title=f"the {min(PAIRS_SHOWN, len(pairs))} most confused pairs of {len(pairs)} "
+                       f"({len(labels)} labels: too many for a matrix)")
+    for col in ("true label", "predicted as", "documents", "share of the true label"):
+        grid.add_column(col, justify="right" if col in ("documents", "share of the true label") else "left")
+    for p in pairs[:PAIRS_SHOWN]:
+        grid.add_row(Text(p["true"]), Text(p["predicted"]), str(p["count"]), f"{p['share']:.1%}")
+    out.print(grid)

@@ -11,9 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from sklearn.metrics import accuracy_score, f1_score
-
 from . import kernels, losses
+from .metrics import macro_f1
 from .options import TrainOptions
 
 # History key of each monitored metric.
@@ -56,13 +55,16 @@ def history_row(epoch, train_loss, lr, params, loss, dev, y_dev, threads=1) -> d
 
 
 def dev_scores(S, y_dev, loss) -> dict:
-    """Dev loss (mean, no L2 term), accuracy and macro-F1 of scores ``S`` (``sklearn.metrics``)."""
+    """Dev loss (mean, no L2 term), accuracy and macro-F1 of scores ``S``.
+
+    Macro-F1 averages over the labels present in the dev truth or predictions
+    (:mod:`lintext.engine.metrics`), as ``lintext evaluate`` does.
+    """
     pred = S.argmax(axis=1)
-    every = np.arange(S.shape[1])
     return {
         "dev_loss": losses.mean_loss(loss, S, y_dev),
-        "dev_accuracy": float(accuracy_score(y_dev, pred)),
-        "dev_macro_f1": float(f1_score(y_dev, pred, labels=every, average="macro", zero_division=0)),
+        "dev_accuracy": float(np.mean(pred == y_dev)),
+        "dev_macro_f1": macro_f1(y_dev, pred, S.shape[1]),
     }
 
 

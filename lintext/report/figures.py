@@ -286,44 +286,6 @@ def _effective_steps(bins):
     return fig
 
 
-def confusion(matrix, labels, which: str, prefix: str = "cm") -> str | None:
-    """Confusion matrix: cell colour is the share of the true label's documents, text the count."""
-    return render(_confusion, prefix, f"Confusion matrix on the {which} set", matrix, labels, which)
-
-
-def _confusion(matrix, labels, which):
-    counts = np.asarray(matrix, dtype=np.float64)
-    if counts.ndim != 2 or counts.shape[0] != counts.shape[1] or counts.shape[0] != len(labels):
-        return None
-    n = len(labels)
-    side = min(8.5, 2.6 + 0.62 * n)
-    fig, (ax,) = new_figure(side + 1.2, side)
-    totals = counts.sum(axis=1, keepdims=True)
-    share = np.divide(counts, totals, out=np.zeros_like(counts), where=totals > 0)
-    # ten discrete shades drawn as vector cells, so neither the matrix nor its colour bar is rasterised
-    cmap = mpl.colors.LinearSegmentedColormap.from_list("lintext", ["#ffffff", "#9fc9cf", SERIES[0], "#0b343a"], N=10)
-    norm = mpl.colors.BoundaryNorm(np.linspace(0, 1, 11), cmap.N)
-    edges = np.arange(n + 1) - 0.5
-    image = ax.pcolormesh(edges, edges, share, cmap=cmap, norm=norm, edgecolors="white", linewidth=0.8)
-    ax.set_xlim(-0.5, n - 0.5)
-    ax.set_ylim(n - 0.5, -0.5)
-    ax.set_aspect("equal")
-    ax.grid(False)
-    for i in range(n):
-        for j in range(n):
-            ax.text(j, i, f"{int(counts[i, j])}", ha="center", va="center", fontsize=8.5,
-                    color="white" if share[i, j] > 0.45 else INK)
-    ax.set_xticks(range(n), labels, rotation=35, ha="right")
-    ax.set_yticks(range(n), labels)
-    ax.set_xlabel("predicted label")
-    ax.set_ylabel("true label")
-    ax.set_title(f"{which} set: counts; colour = share of the true label")
-    ax.spines[:].set_visible(False)
-    bar = fig.colorbar(image, ax=ax, shrink=0.75)
-    bar.set_label("share of the row (recall on the diagonal)")
-    return fig
-
-
 # ---------------------------------------------------------------- several models
 
 

@@ -14,6 +14,7 @@ import numpy as np
 
 from . import figures
 from .confidence_page import calibration_section, coverage_section, errors_section
+from .confusions import confusion_section, evaluated_set
 from .layout import figure_block, fmt, kv, name_cell, page, pct, section, table
 from .stats import RARE_DF, frequency_bins, key_numbers, rare_heavy, top_features
 
@@ -27,8 +28,6 @@ GUIDE = {
     "steps": "Each point is the median final effective step of the features in one frequency bin (bars: middle half): the "
              "learning rate times the optimizer's per-feature scaling, how far one unit of gradient moves a weight; a line "
              "that falls from left to right means the optimizer gives rare features larger steps than frequent ones.",
-    "confusion": "Rows are the true labels and columns the predicted ones: the diagonal holds the correct predictions, "
-                 "and a dark cell off the diagonal names a pair of labels the model confuses.",
     "compare_frequency": "One line per model, medians per document-frequency bin on shared log axes (band: middle half): "
                          "where a model's line lies higher at the rare end, that optimizer moved rare features further.",
     "compare_learning": "One colour per model on shared axes: solid lines are train loss and dashed dev loss, the stars "
@@ -79,16 +78,12 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
     sections.append(section("labels", "Strongest features per label", _top_tables(model, table_, top)))
     sections.append(section("rare", "Rare features with large weights", _rare_table(model, table_, rare_rows)))
 
-    which = "test" if isinstance(metrics.get("test"), dict) and metrics["test"].get("confusion") else \
-        "dev" if isinstance(metrics.get("dev"), dict) and metrics["dev"].get("confusion") else None
+    which = evaluated_set(metrics)
     if which:
-        m = metrics[which]
-        body = figure_block(figures.confusion(m["confusion"], m.get("labels", model.labels), which), GUIDE["confusion"],
-                            "The confusion matrix could not be drawn (its shape does not match the labels).")
-        body += _per_label_table(m, which)
+        body = confusion_section(metrics[which], model.labels, which)
     else:
         body = '<p class="note">No dev or test set was evaluated, so there is no confusion matrix.</p>'
-    sections.append(section("confusion", "Confusion matrix", body))
+    sections.append(section("confusion", "Confusions", body))
     sections.append(section("calibration", "Calibration", calibration_section(model)))
     sections.append(section("routing", "Routing by confidence", coverage_section(model)))
     sections.append(section("errors", "Most confident errors", errors_section(model)))
@@ -227,15 +222,6 @@ def _rare_table(model, table_: dict, rare_rows: int) -> str:
                                  "without the training-time extras that record them.</p>")
     return intro + note + table(["feature", "documents", "weight norm", "rank of norm among all features", "strongest label (weight)",
                                  "training documents"], out, {1, 2, 3})
-
-
-def _per_label_table(m: dict, which: str) -> str:
-    per = m.get("per_label")
-    if not isinstance(per, dict):
-        return ""
-    rows = [[escape(name), fmt(v.get("precision"), 3), fmt(v.get("recall"), 3), fmt(v.get("f1"), 3), fmt(v.get("support"))]
-            for name, v in per.items()]
-    return f"<h3>Per label, {escape(which)} set</h3>" + table(["label", "precision", "recall", "F1", "documents"], rows, {1, 2, 3, 4})
 
 
 # ---------------------------------------------------------------- several models

@@ -11,6 +11,7 @@ import numpy as np
 from ..errors import ConfigError, LinTextError, OutputError
 from ..files import atomic_file, csv_value
 from ..model import Model, open_model
+from .confusions import CSV_NAME, evaluated_set, write_confusion_csv
 from .pages import comparison_page, report_page
 from .stats import bin_label, feature_table
 
@@ -59,7 +60,8 @@ def write_report(model: Model, folder: str | os.PathLike, top: int = 10, rare_ro
 
     Returns
     -------
-    dict with the paths written, ``{"features": Path, "report": Path}``.
+    dict with the paths written, ``{"features": Path, "report": Path}`` and ``"confusion"``
+    (``confusion.csv``, the full matrix of the test set, else the dev set) when the model has one.
 
     Notes
     -----
@@ -78,7 +80,11 @@ def write_report(model: Model, folder: str | os.PathLike, top: int = 10, rare_ro
     html = report_html(model, top=top, rare_rows=rare_rows, title=title, table=table)
     features = write_features_csv(table, folder / "features.csv")
     report = atomic_file(folder / "report.html", lambda fh: fh.write(html), newline="\n")
-    return {"features": features, "report": report}
+    written = {"features": features, "report": report}
+    which = evaluated_set(model.info.get("metrics") or {})
+    if which:
+        written["confusion"] = write_confusion_csv(model.info["metrics"][which], model.labels, folder / CSV_NAME)
+    return written
 
 
 def comparison_html(models: list, names: list | None = None, title: str | None = None) -> str:

@@ -282,7 +282,9 @@ def assert_offline(html: str):
     # every reference stays inside the page: fragment links only, no scheme, no protocol-relative URL
     refs = URL_ATTR.findall(html) + CSS_URL.findall(html)
     assert refs, "expected in-page references (navigation links, SVG clip paths)"
-    assert all(ref.startswith("#") for ref in refs), [r for r in refs if not r.startswith("#")]
+    # (an image inside a figure is inline too: a data: URI holding the PNG itself)
+    inside = [r for r in refs if r.startswith("#") or r.startswith("data:image/png;base64,")]
+    assert len(inside) == len(refs), [r for r in refs if r not in inside]
     assert "http://" not in html and "https://" not in html
     assert not re.search(r"<script[^>]*\ssrc", html, re.I)
     assert not re.search(r"<link\b", html, re.I)
@@ -302,7 +304,7 @@ def test_report_sections_and_numbers(trained):
     model = trained["model"]
     html = (trained["dir"] / "report.html").read_text(encoding="utf-8")
     for heading in ("Summary", "Learning curves", "Frequency and updates", "Effective step per feature", "Per frequency bin",
-                    "Strongest features per label", "Rare features with large weights", "Confusion matrix", "Calibration",
+                    "Strongest features per label", "Rare features with large weights", "Confusions", "Calibration",
                     "Routing by confidence", "Most confident errors"):
         assert f"<h2>{heading}</h2>" in html
     assert html.count("<b>How to read:</b>") == 6  # one reading guide per figure
