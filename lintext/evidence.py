@@ -33,7 +33,8 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
         the row order of ``X_train``.
     X_train : the training matrix (CSR) the model was trained on.
     train_labels : optional label of each training text, shown beside its snippet.
-    top_rare : how many rare features (df <= ``rare_df``) with the largest weight norms to keep.
+    top_rare : how many rare features (df <= ``rare_df``) with the largest weight norms to keep
+        (norms of the rows with their mean across labels removed, as in the report).
     ngrams_per_column : hashing mode: how many n-grams to name per column.
 
     Returns
@@ -56,10 +57,11 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
         names_by_column = {c: [g[0] for g in grams] for c, grams in zip(section["columns"], section["ngrams"])}
 
     df = np.asarray(feat.document_frequency, dtype=np.int64)
-    coef = np.asarray(model.coef, dtype=np.float64)
     candidates = np.flatnonzero((df >= 1) & (df <= rare_df))
-    norms = np.sqrt(np.einsum("ij,ij->i", coef[candidates], coef[candidates]))
-    chosen = candidates[np.lexsort((candidates, -norms))][:top_rare]
+    rows = np.asarray(model.coef[candidates], dtype=np.float64)
+    rows = rows - rows.mean(axis=1, keepdims=True)  # the mean across labels: invisible to the loss
+    norms = np.sqrt(np.einsum("ij,ij->i", rows, rows))
+    chosen = candidates[np.lexsort((candidates, -np.round(norms, 12)))][:top_rare]  # rounded: ties stay ties
     norm_of = dict(zip(candidates.tolist(), norms.tolist()))
     X = X_train.tocsc()
     rare = []

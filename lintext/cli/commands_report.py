@@ -79,7 +79,7 @@ def inspect(
     """
     from ..model import open_model
     from ..report.layout import fmt, pct
-    from ..report.stats import RARE_DF, check_label, feature_table, frequency_bins, rare_heavy, top_features
+    from ..report.stats import check_label, feature_table, frequency_bins, rare_heavy, top_features
 
     model = open_model(model_dir)
     check_label(model, label)
@@ -94,31 +94,54 @@ def inspect(
         return
     table = feature_table(model)
     if rare:
-        rows = rare_heavy(model, top=rare_rows, label=label, table=table)
-        title = f"rare features (in at most {RARE_DF} training documents) with the largest weight norms"
-        grid = Table(title=title + (f", strongest toward {label}" if label else ""), show_lines=True)
-        for col in ("feature", "document frequency", "weight norm (rank)", "strongest label", "training documents"):
-            grid.add_column(col, justify="right" if col in ("document frequency", "weight norm (rank)") else "left")
-        for r in rows:
-            docs = "\n".join(f"{d.get('source', '')}" + (f" ({d['label']})" if d.get("label") else "") + f": {d.get('snippet', '')}"
-                             for d in r["documents"]) or "–"
-            grid.add_row(Text(r["feature"]), str(r["document_frequency"]), f"{fmt(r['weight_norm'], 3)} ({r['norm_rank']})",
-                         Text(f"{r['max_weight_label']} ({fmt(r['max_weight'], 3)})"), Text(docs))
-        out.print(grid)
-        if rows and not any(r["documents"] for r in rows):
-            out.print("training documents not recorded for this model", markup=False)
+        print_rare(rare_heavy(model, top=rare_rows, label=label, table=table), len(table["column"]), label)
     else:
         for name_, rows in top_features(model, top=top, label=label, table=table).items():
-            grid = Table(title=Text(f"strongest features toward {name_}"))
+            grid = Table(title=Text(f"strongest features toward {name_} (weights centred across labels)"))
             for col in ("feature", "weight", "document frequency"):
                 grid.add_column(col, justify="left" if col == "feature" else "right")
             for r in rows:
                 grid.add_row(Text(r["feature"]), fmt(r["weight"], 3), f"{r['document_frequency']:,}")
             out.print(grid)
-    grid = Table(title="features per document-frequency bin")
+    grid = Table(title="features per document-frequency bin (weight norms centred across labels)")
     for col in ("document frequency", "features", "share", "share of |Δw|", "median weight norm", "median sum |Δw|",
                 "median effective step"):
         grid.add_column(col, justify="right")
     for b in frequency_bins(table):
         grid.add_row(b["label"], f"{b['features']:,}", pct(b["feature_share"]), pct(b["update_share"]), fmt(b["median_weight_norm"], 3), fmt(b["median_update"], 3), fmt(b["median_effective_step"], 3))
     out.print(grid)
+
+
+def print_rare(rows: list, n_features: int, label: str | None) -> None:
+    """The rare-but-heavy features as a narrow table, then their training documents one per line
+    (cut to the terminal's width): reads at 80 columns."""
+    from rich import box
+
+    from ..evidence import snippet
+    from ..report.layout import fmt
+    from ..report.stats import RARE_DF
+
+    title = (f"rare features (in at most {RARE_DF} training documents), largest weight norm first"
+             + (f", strongest toward {label}" if label else ""))
+    grid = Table(title=Text(title), box=box.SIMPLE_HEAD, pad_edge=False,
+                 caption="norm: of the weights with their mean across labels removed (what the loss sees); "
+                         f"rank among all {n_features:,} features", caption_justify="left")
+    for col, right in (("#", True), ("feature", False), ("docs", True), ("norm", True), ("raw", True), ("rank", True),
+                       ("strongest label (weight)", False)):
+        grid.add_column(col, justify="right" if right else "left", no_wrap=col != "feature", overflow="fold")
+    for k, r in enumerate(rows, start=1):
+        grid.add_row(str(k), Text(r["feature"]), str(r["document_frequency"]), fmt(r["weight_norm"], 3),
+                     fmt(r["raw_weight_norm"], 3), f"{r['norm_rank']:,}", Text(f"{r['max_weight_label']} ({fmt(r['max_weight'], 3)})"))
+    out.print(grid)
+    if rows and not any(r["documents"] for r in rows):
+        out.print("training documents not recorded for this model", markup=False)
+        return
+    for k, r in enumerate(rows, start=1):
+        if not r["documents"]:
+            continue
+        out.print(Text(f"{k}. {r['feature']}", style="bold"), no_wrap=True, overflow="ellipsis")
+        for d in r["documents"]:
+            where = f"   {d.get('source', '')}" + (f" ({d['label']})" if d.get("label") else "") + ": "
+            room = max(20, out.width - len(where))  # the snippet re-centred on the feature to fit the line
+            out.print(Text(where + snippet(d.get("snippet", ""), r["feature"].split(" | "), width=room)),
+                      no_wrap=True, overflow="ellipsis")

@@ -222,7 +222,7 @@ def _frequency_updates(table, bins, sample):
     panels = [
         (ax_u, upd, "sum of |Δw| over training (log scale)", "Update magnitude",
          "no gradient-step updates recorded\n(L-BFGS, or no update statistics)"),
-        (ax_w, norm, "final weight norm, L2 across labels (log scale)", "Final weight", "all weights are zero"),
+        (ax_w, norm, "final weight norm, centred across labels (log scale)", "Final weight", "all weights are zero"),
     ]
     for ax, values, ylabel, title, missing in panels:
         ax.set_title(title)

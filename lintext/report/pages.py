@@ -18,6 +18,12 @@ from .confusions import confusion_section, evaluated_set
 from .layout import figure_block, fmt, kv, name_cell, page, pct, section, table
 from .stats import RARE_DF, frequency_bins, key_numbers, rare_heavy, top_features
 
+CENTRED_NOTE = ("Weight norms and weights on this page are taken after removing each feature's mean weight across "
+                "labels: softmax and the multiclass hinge ignore that mean (adding one amount to all of a feature's label "
+                "weights changes no probability and no prediction), so only the centred weights are what the model uses. "
+                "Plain SGD keeps the mean at zero; per-coordinate rules such as AdaGrad let it drift, and the raw norm "
+                "would overstate such features. features.csv keeps the raw norm as raw_weight_norm.")
+
 GUIDE = {
     "learning": "Read each panel left to right: train and dev loss should fall together, a dev loss that turns upward while "
                 "the train loss keeps falling marks over-fitting, the dotted line is the best epoch whose weights were kept, "
@@ -64,7 +70,7 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
     sections.append(section("learning", "Learning curves",
                             figure_block(learning, GUIDE["learning"], "This model has no per-epoch history.")))
 
-    body = [_key_numbers(key_numbers(table_))] if len(table_["column"]) else []
+    body = [_key_numbers(key_numbers(table_)), f'<p class="muted">{escape(CENTRED_NOTE)}</p>'] if len(table_["column"]) else []
     body.append(figure_block(
         figures.frequency_updates(table_, bins), GUIDE["frequency"],
         f"{why}, and every weight is zero: there is nothing to plot."))
@@ -205,7 +211,8 @@ def _rare_table(model, table_: dict, rare_rows: int) -> str:
     rows = rare_heavy(model, top=rare_rows, table=table_)
     intro = (f'<p class="muted">Features in at most {RARE_DF} training documents, largest weight norm first. '
              "A rare feature ranked among the largest weights of the whole model is likely memorised: it fits "
-             "these few documents rather than a pattern that will recur.</p>")
+             "these few documents rather than a pattern that will recur. Norms are of the weights with their mean across "
+             "labels removed (what the loss can see); the raw norm is shown beside them.</p>")
     if not rows:
         return intro + '<p class="note">No feature occurs in only one or two training documents.</p>'
     have_docs = any(r["documents"] for r in rows)
@@ -216,12 +223,12 @@ def _rare_table(model, table_: dict, rare_rows: int) -> str:
             + (f' <i>({escape(d["label"])})</i>' if d.get("label") else "")
             + f" {escape(d.get('snippet', ''))}</div>" for d in r["documents"]) or '<span class="muted">–</span>'
         out.append([name_cell(r["feature"]), fmt(r["document_frequency"]), fmt(r["weight_norm"], 3),
-                    f"{fmt(r['norm_rank'])} of {fmt(len(table_['column']))}",
+                    fmt(r["raw_weight_norm"], 3), f"{fmt(r['norm_rank'])} of {fmt(len(table_['column']))}",
                     f"{escape(r['max_weight_label'])} ({fmt(r['max_weight'], 3)})", (docs, "docs")])
     note = "" if have_docs else ('<p class="note">The training documents are not shown: this model was saved '
                                  "without the training-time extras that record them.</p>")
-    return intro + note + table(["feature", "documents", "weight norm", "rank of norm among all features", "strongest label (weight)",
-                                 "training documents"], out, {1, 2, 3})
+    return intro + note + table(["feature", "documents", "weight norm (centred)", "raw norm", "rank of norm among all features",
+                                 "strongest label (weight)", "training documents"], out, {1, 2, 3, 4})
 
 
 # ---------------------------------------------------------------- several models

@@ -12,7 +12,14 @@ Vocabulary
 *update magnitude*
     ``sum |Δw|`` over those steps and over labels (``abs_update_sum``);
 *weight norm*
-    the L2 norm of the feature's row of ``coef`` (its weights across labels);
+    the L2 norm of the feature's row of ``coef`` (its weights across labels) after removing the
+    row's mean across labels. Softmax and the multiclass hinge ignore that mean: adding the same
+    amount to every label's weight of a feature changes no score difference, no probability and
+    no prediction, so only the centred row is what the loss can see. Plain SGD keeps each row's
+    mean at zero (the softmax gradient sums to zero across labels) but per-coordinate rules such
+    as AdaGrad let it drift, and the raw norm would then overstate the feature's weight. Every
+    per-feature size (norm, largest weight, per-label weight) is taken on the centred row; the
+    raw norm is kept as ``raw_weight_norm``;
 *effective step*
     the learning rate times the rule's final per-feature scaling (how far one unit of
     gradient moves the weight), mean over labels (NaN for L-BFGS, where there is none).
@@ -51,9 +58,11 @@ def feature_table(model) -> dict:
         n-grams that fell into the column, joined by `` | ``, when the model's
         ``info["explain"]`` has them, else ``""``), ``document_frequency`` (int),
         ``update_count``, ``abs_update_sum``, ``effective_step`` (float; NaN when the model
-        has no ``feature_stats``), ``weight_norm`` (L2 norm of the ``coef`` row),
-        ``max_weight`` and ``max_weight_label`` (the largest of the row's weights and its
-        label), ``frequency_bin`` (index into :func:`frequency_bins`; -1 for ``df = 0``).
+        has no ``feature_stats``), ``weight_norm`` (L2 norm of the ``coef`` row with its mean
+        across labels removed), ``raw_weight_norm`` (of the row as stored), ``weight_mean``
+        (that mean), ``max_weight`` and ``max_weight_label`` (the largest of the centred
+        row's weights and its label), ``frequency_bin`` (index into :func:`frequency_bins`;
+        -1 for ``df = 0``).
 
     In vocabulary mode there is one row per vocabulary entry, in column order; in
     hashing mode one row per column kept after the document-frequency limits.
@@ -68,7 +77,9 @@ def feature_table(model) -> dict:
     else:
         columns = np.arange(len(feat.feature_names), dtype=np.int64)
         names = list(feat.feature_names)
-    coef = np.asarray(model.coef, dtype=np.float64)[columns]
+    raw = np.asarray(model.coef[columns], dtype=np.float64)
+    mean = raw.mean(axis=1) if raw.size else np.zeros(len(columns))
+    coef = centred_rows(raw, mean)
     best = coef.argmax(axis=1) if coef.size else np.zeros(0, dtype=np.int64)
     df = df_all[columns]
     table = {
@@ -83,10 +94,27 @@ def feature_table(model) -> dict:
         else:
             table[name] = np.full(len(columns), np.nan)
     table["weight_norm"] = np.sqrt(np.einsum("ij,ij->i", coef, coef))
+    table["raw_weight_norm"] = np.sqrt(np.einsum("ij,ij->i", raw, raw))
+    table["weight_mean"] = mean
     table["max_weight"] = coef[np.arange(len(columns)), best] if len(columns) else np.zeros(0)
     table["max_weight_label"] = [model.labels[int(j)] for j in best]
     table["frequency_bin"] = bin_index(df)
     return table
+
+
+def centred_rows(coef, mean=None) -> np.ndarray:
+    """``coef`` (features x labels) with each row's mean across labels removed, as float64:
+    the part of each feature's weights that softmax and the multiclass hinge can see."""
+    coef = np.asarray(coef, dtype=np.float64)
+    if mean is None:
+        mean = coef.mean(axis=1) if coef.size else np.zeros(coef.shape[0])
+    return coef - np.asarray(mean)[:, None]
+
+
+def size_key(values) -> np.ndarray:
+    """Sizes rounded to 1e-12 for ranking and ordering, so that ties stay ties whatever rounding
+    the centring left (a shifted row's centred weights differ in their last bits)."""
+    return np.round(np.asarray(values, dtype=np.float64), 12)
 
 
 # ---------------------------------------------------------------- frequency bins
@@ -173,7 +201,10 @@ def _quantiles(values) -> tuple[float, float, float]:
 
 
 def top_features(model, top: int = 10, label: str | None = None, table: dict | None = None) -> dict:
-    """The ``top`` features with the largest weight for each label (or for ``label`` only).
+    """The ``top`` features with the largest (centred) weight for each label (or for ``label`` only).
+
+    Weights are the feature's row with its mean across labels removed (see the module
+    docstring): what the feature adds to this label's score over the other labels on average.
 
     Returns
     -------
@@ -181,13 +212,13 @@ def top_features(model, top: int = 10, label: str | None = None, table: dict | N
     ``weight_norm``), largest weight first.
     """
     table = feature_table(model) if table is None else table
-    coef = np.asarray(model.coef, dtype=np.float64)[table["column"]]
+    coef = np.asarray(model.coef[table["column"]], dtype=np.float64)
     wanted = model.labels if label is None else [label]
     out = {}
     for name in wanted:
         j = model.labels.index(name)
-        weights = coef[:, j]
-        order = np.lexsort((table["column"], -weights))[:top]
+        weights = coef[:, j] - table["weight_mean"]
+        order = np.lexsort((table["column"], -size_key(weights)))[:top]
         out[name] = [{
             "feature": table["feature"][i] or f"column {int(table['column'][i])}",
             "column": int(table["column"][i]),
@@ -199,7 +230,7 @@ def top_features(model, top: int = 10, label: str | None = None, table: dict | N
 
 
 def rare_heavy(model, top: int = 15, label: str | None = None, table: dict | None = None, rare_df: int = RARE_DF) -> list[dict]:
-    """Features in at most ``rare_df`` training documents with the largest weight norms.
+    """Features in at most ``rare_df`` training documents with the largest (centred) weight norms.
 
     These are the features the model may have memorised: seen once or twice, yet
     weighted like the frequent ones. Each row has ``feature``, ``column``,
@@ -212,24 +243,26 @@ def rare_heavy(model, top: int = 15, label: str | None = None, table: dict | Non
     """
     table = feature_table(model) if table is None else table
     norms = table["weight_norm"]
+    keys = size_key(norms)
     df = table["document_frequency"]
     n = len(norms)
     candidates = np.flatnonzero((df >= 1) & (df <= rare_df))
     if label is not None:
         candidates = np.array([i for i in candidates if table["max_weight_label"][i] == label], dtype=np.int64)
-    order = candidates[np.lexsort((table["column"][candidates], -norms[candidates]))][:top]
+    order = candidates[np.lexsort((table["column"][candidates], -keys[candidates]))][:top]
     documents = {int(item["column"]): item.get("documents", []) for item in explain_section(model).get("rare_features", [])}
     rows = []
     for i in order:
         norm = float(norms[i])
-        rank = int((norms > norm).sum()) + 1  # 1 = the largest; ties share the better rank
+        rank = int((keys > keys[i]).sum()) + 1  # 1 = the largest; ties share the better rank
         rows.append({
             "feature": table["feature"][i] or f"column {int(table['column'][i])}",
             "column": int(table["column"][i]),
             "document_frequency": int(df[i]),
             "weight_norm": norm,
+            "raw_weight_norm": float(table["raw_weight_norm"][i]),
             "norm_rank": rank,
-            "norm_percentile": float((norms < norm).sum() / n) if n else math.nan,
+            "norm_percentile": float((keys < keys[i]).sum() / n) if n else math.nan,
             "max_weight": float(table["max_weight"][i]),
             "max_weight_label": table["max_weight_label"][i],
             "documents": documents.get(int(table["column"][i]), []),
@@ -253,7 +286,7 @@ def key_numbers(table: dict, rare_df: int = RARE_DF, top: int = 100) -> dict:
     updates = table["abs_update_sum"]
     total = float(np.nansum(updates[used])) if np.isfinite(updates).any() else math.nan
     top = min(top, int(used.sum()))
-    order = np.lexsort((table["column"], -norms))[:top]
+    order = np.lexsort((table["column"], -size_key(norms)))[:top]
     return {
         "features": int(used.sum()),
         "rare_df": rare_df,

@@ -206,8 +206,9 @@ def test_rare_features_and_their_documents(trained):
     counts = cv.fit_transform(trained["texts"]).tocsc()
     index = {name: j for j, name in enumerate(cv.get_feature_names_out())}
     df = np.diff(counts.indptr)
-    # the rare features kept: df <= 2, largest weight norm first (norms from the weights directly)
-    norms = np.linalg.norm(model.coef, axis=1)
+    # the rare features kept: df <= 2, largest weight norm first (norms from the weights directly, each row
+    # centred across labels: the part softmax can see)
+    norms = np.round(np.linalg.norm(model.coef - model.coef.mean(axis=1, keepdims=True), axis=1), 12)
     names = model.featurizer.feature_names
     rare = sorted((j for j in range(len(names)) if df[index[names[j]]] <= 2), key=lambda j: (-norms[j], j))[:30]
     extras = model.info["explain"]
@@ -236,9 +237,10 @@ def test_snippet_is_centred_on_the_feature():
 def test_top_features_per_label_are_the_largest_weights(trained):
     model = trained["model"]
     top = top_features(model, top=3, label="water")
-    # NumPy directly: the three largest entries of the "water" column of coef
+    # NumPy directly: the three largest entries of the "water" column of coef, each row centred across labels
     j = model.labels.index("water")
-    expected = np.argsort(-model.coef[:, j], kind="stable")[:3]
+    centred = model.coef - model.coef.mean(axis=1, keepdims=True)
+    expected = np.argsort(-np.round(centred[:, j], 12), kind="stable")[:3]
     assert [r["column"] for r in top["water"]] == expected.tolist()
     assert list(top) == ["water"]
 
@@ -473,13 +475,15 @@ def test_cli_inspect_tables(trained):
     result = run("inspect", trained["dir"], "--label", "water", "--top", "2")
     assert result.exit_code == 0, result.output
     j = model.labels.index("water")
-    best = model.featurizer.feature_names[int(np.argmax(model.coef[:, j]))]  # NumPy directly
+    centred = model.coef - model.coef.mean(axis=1, keepdims=True)  # what softmax sees of each row
+    best = model.featurizer.feature_names[int(np.argmax(centred[:, j]))]  # NumPy directly
     assert "strongest features toward water" in result.output and best in result.output
     assert "strongest features toward billing" not in result.output
     assert "features per document-frequency bin" in result.output
     rare = run("inspect", trained["dir"], "--rare", "--rare-rows", "1")
     assert rare.exit_code == 0, rare.output
     assert model.info["explain"]["rare_features"][0]["documents"][0]["source"] in rare.output
+    assert max(len(line) for line in rare.output.splitlines()) <= 80  # reads in an 80-column terminal
     bad = run("inspect", trained["dir"], "--label", "nope")
     assert bad.exit_code == 2 and "--label='nope': not a label of this model" in bad.output
     assert len(bad.output.strip().splitlines()) == 1
