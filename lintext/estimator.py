@@ -1,9 +1,15 @@
 """A scikit-learn compatible classifier over lintext's training engine.
 
-It takes a feature matrix (sparse or dense), not text, so that it composes with
+By default it takes a feature matrix (sparse or dense), so that it composes with
 scikit-learn's vectorizers in a ``Pipeline``::
 
     make_pipeline(TfidfVectorizer(), LinTextClassifier())
+
+With ``featurizer`` set (``True`` for the command line's featurizer defaults, or a dict of
+:class:`~lintext.text.config.FeaturizerConfig` fields) it takes raw texts instead and fits
+lintext's own featurizer inside (``featurizer_`` after fitting)::
+
+    LinTextClassifier(featurizer={"ngrams": (1, 2)}).fit(texts, labels).predict(["a new text"])
 
 Early stopping (on by default, as on the command line) holds out a stratified
 ``validation_fraction`` of the training rows; with ``early_stopping=False``, or when the data
@@ -19,7 +25,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.model_selection import train_test_split
 from sklearn.utils.metaestimators import available_if
 from sklearn.utils.multiclass import check_classification_targets
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_data
 
 from .engine.options import TrainOptions
 from .engine.trainer import fit
@@ -34,7 +40,8 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
     Parameters mirror :class:`lintext.engine.options.TrainOptions`, with the same defaults as
     ``lintext train`` (plain SGD, 50 epochs, early stopping with patience 5 on a stratified
     ``validation_fraction`` of the rows); see there for their meaning. ``learning_rate=None``
-    takes the optimizer's default.
+    takes the optimizer's default. ``featurizer``: ``None`` (X is a feature matrix), or ``True``
+    or a dict of featurizer options (X is a list of raw texts, featurized inside).
 
     Attributes
     ----------
@@ -44,12 +51,14 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         labels, one row per feature, the layout the engine trains).
     intercept_ : array (n_classes,).
     history_ : per-epoch records.
-    n_features_in_ : number of input columns.
+    n_features_in_ : number of input columns (with ``featurizer``: of the fitted featurizer's output).
+    featurizer_ : with ``featurizer``, the fitted :class:`~lintext.text.featurizer.Featurizer`.
     """
 
     def __init__(self, loss=DEFAULTS.loss, optimizer=DEFAULTS.optimizer, learning_rate=DEFAULTS.learning_rate,
                  schedule=DEFAULTS.schedule, epochs=DEFAULTS.epochs, batch_size=DEFAULTS.batch_size, l2=DEFAULTS.l2,
-                 early_stopping=True, validation_fraction=0.1, patience=DEFAULTS.patience, seed=DEFAULTS.seed):
+                 early_stopping=True, validation_fraction=0.1, patience=DEFAULTS.patience, seed=DEFAULTS.seed,
+                 featurizer=None):
         self.loss = loss
         self.optimizer = optimizer
         self.learning_rate = learning_rate
@@ -61,9 +70,23 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.validation_fraction = validation_fraction
         self.patience = patience
         self.seed = seed
+        self.featurizer = featurizer
 
     def fit(self, X, y):
-        X, y = validate_data(self, X, y, accept_sparse="csr", dtype=np.float64)
+        if self.featurizer is not None:
+            from .pipeline import featurizer_config
+            from .text.featurizer import Featurizer
+
+            config = featurizer_config(None if self.featurizer is True else self.featurizer)
+            texts = _texts(X)
+            y = column_or_1d(y, warn=True)
+            if len(y) != len(texts):
+                raise ValueError(f"{len(texts)} texts but {len(y)} labels")
+            self.featurizer_ = Featurizer(config)
+            X = self.featurizer_.fit_transform(texts)
+            self.n_features_in_ = X.shape[1]
+        else:
+            X, y = validate_data(self, X, y, accept_sparse="csr", dtype=np.float64)
         check_classification_targets(y)
         self.classes_, codes = np.unique(y, return_inverse=True)
         if len(self.classes_) < 2:
@@ -94,7 +117,10 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
 
     def _scores(self, X):
         check_is_fitted(self)
-        X = validate_data(self, X, accept_sparse="csr", dtype=np.float64, reset=False)
+        if self.featurizer is not None:
+            X = self.featurizer_.transform(_texts(X))
+        else:
+            X = validate_data(self, X, accept_sparse="csr", dtype=np.float64, reset=False)
         return np.asarray(X @ self.coef_.T) + self.intercept_
 
     def decision_function(self, X):
@@ -116,3 +142,14 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
     @available_if(_has_probabilities)
     def predict_log_proba(self, X):
         return np.log(self.predict_proba(X))
+
+
+def _texts(X) -> list:
+    """Raw texts: a list (or array, or Series) of strings, never one string."""
+    if isinstance(X, str) or not hasattr(X, "__iter__"):
+        raise ValueError("with featurizer set, X must be a list of texts, not a single string")
+    texts = list(X)
+    bad = next((t for t in texts if not isinstance(t, str)), None)
+    if bad is not None:
+        raise ValueError(f"with featurizer set, X must hold strings; found {type(bad).__name__}")
+    return texts

@@ -83,11 +83,11 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
     report = progress or (lambda event: None)
     fconfig = featurizer_config(featurizer)
     dev_fraction = check_dev_fraction(dev_fraction, dev)
-    report({"stage": "reading", "path": str(data)})
-    corpus = data if isinstance(data, Corpus) else read_corpus(data, reader)
+    report({"stage": "reading", "path": str(data) if _is_path(data) else getattr(data, "path", "in-memory data")})
+    corpus = as_corpus(data, reader=reader)
     if dev is not None:
         train_set = corpus
-        dev_set = dev if isinstance(dev, Corpus) else read_corpus(dev, reader, min_labels=1)
+        dev_set = as_corpus(dev, reader=reader, min_labels=1)
     elif dev_fraction and dev_fraction > 0:
         train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
     else:
@@ -103,9 +103,10 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
         check_fits(X.shape[1], len(labels), options, None, getattr(data, "path", data))
     X_dev = feat.transform(dev_set.texts).tocsr() if dev_set is not None else None
     description = {
-        "train": str(getattr(data, "path", data)),
+        "train": corpus.path,
         "train_documents": len(train_set),
-        "dev": None if dev_set is None else (str(getattr(dev, "path", dev)) if dev is not None else f"{dev_fraction:g} of train"),
+        "empty_texts": count_empty(train_set.texts),
+        "dev": None if dev_set is None else (dev_set.path if dev is not None else f"{dev_fraction:g} of train"),
         "dev_documents": 0 if dev_set is None else len(dev_set),
         "features": int(X.shape[1]),
         "nonzeros": int(X.nnz),
@@ -116,22 +117,25 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
 
 
 def build_model(
-    data: str | os.PathLike | Corpus,
-    dev: str | os.PathLike | Corpus | None = None,
-    test: str | os.PathLike | Corpus | None = None,
+    data: str | os.PathLike | Corpus | tuple | list,
+    dev: str | os.PathLike | Corpus | tuple | None = None,
+    test: str | os.PathLike | Corpus | tuple | None = None,
     dev_fraction: float = 0.1,
     featurizer: FeaturizerConfig | dict | None = None,
     options: TrainOptions | dict | None = None,
     reader: ReaderOptions | None = None,
     n_jobs: int = 1,
     progress: Progress | None = None,
+    labels: list | None = None,
 ) -> Model:
     """Train a model from labelled data.
 
     Parameters
     ----------
-    data : training file, folder or :class:`~lintext.text.readers.Corpus`.
-    dev : a dev set; when ``None``, a stratified ``dev_fraction`` of ``data``
+    data : training file, folder, :class:`~lintext.text.readers.Corpus`, a ``(texts, labels)``
+        pair of lists, or a list of texts with ``labels`` (``build_model(texts, labels)`` works
+        too: a list as the second argument, as long as ``texts``, is read as their labels).
+    dev : a dev set (the same kinds, lists as a ``(texts, labels)`` pair); when ``None``, a stratified ``dev_fraction`` of ``data``
         (seeded by ``options.seed``) is held out; ``dev_fraction=0`` trains on
         everything with no early stopping.
     test : optional test set, evaluated once at the end (never used in training).
@@ -145,6 +149,11 @@ def build_model(
     Model, with ``info`` holding options, history, best epoch and metrics.
     """
     report = progress or (lambda event: None)
+    if labels is None and isinstance(dev, list) and isinstance(data, (list, tuple)) and len(dev) == len(data) \
+            and not (isinstance(data, tuple) and len(data) == 2 and not isinstance(data[0], str)):
+        labels, dev = dev, None  # build_model(texts, labels)
+    if labels is not None:
+        data = (data, labels)
     topts = TrainOptions.from_mapping(options).validate()
     prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report, options=topts)
     result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
@@ -163,8 +172,8 @@ def build_model(
     finish_with_dev(model, prep)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
-        test_set = _corpus(test, reader, min_labels=1)
-        model.info["data"]["test"] = str(getattr(test, "path", test))
+        test_set = as_corpus(test, reader=reader, min_labels=1)
+        model.info["data"]["test"] = test_set.path
         model.info["metrics"]["test"] = evaluate(model, test_set)
     return model
 
@@ -230,7 +239,7 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
         require_calibration(model, "--target-accuracy")
     if unknown_labels not in UNKNOWN_LABELS:
         raise ConfigError("unknown_labels", unknown_labels, f"choose one of {', '.join(UNKNOWN_LABELS)}")
-    corpus = _corpus(data, reader, min_labels=1)
+    corpus = as_corpus(data, reader=reader, min_labels=1)
     known = set(model.labels)
     unknown_counts: dict[str, int] = {}
     for label in corpus.labels:
@@ -239,7 +248,7 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
     if unknown_counts and unknown_labels == "skip":
         corpus = corpus.subset([i for i, label in enumerate(corpus.labels) if label in known])
         if len(corpus) == 0:
-            raise InputError(getattr(data, "path", data), "no document has a label the model knows "
+            raise InputError(corpus.path, "no document has a label the model knows "
                              f"(the model's labels: {', '.join(model.labels)})")
     names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
     y_true = corpus.label_indices(names)
@@ -288,15 +297,17 @@ def count_empty(texts) -> int:
 
 
 def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None,
-                    min_probability: float | None = None):
+                    min_probability: float | None = None, counts: dict | None = None):
     """Yield a CSV header and then one row per input record, streaming in chunks.
 
-    Columns: ``row`` (the record's number in the input, from 1), ``label``, and
-    ``probability`` (calibrated when the model has a calibration) or ``score`` (a hinge model
-    without one); with ``top_labels`` > 1 also ``label_2``, ``probability_2`` ... up to
-    ``top_labels``. Labels are ranked by score, so a calibration never changes them. With
-    ``min_probability`` (needs a calibrated model) a row whose best probability is below it gets
-    an empty ``label`` and ``yes`` in a last column, ``review`` (``no`` for the rows decided).
+    Columns: ``row`` (the record's number in the input, from 1), ``id`` (with
+    ``reader.id_column``: that column's value), ``label``, and ``probability`` (calibrated when
+    the model has a calibration) or ``score`` (a hinge model without one); with ``top_labels`` > 1
+    also ``label_2``, ``probability_2`` ... up to ``top_labels``. Labels are ranked by score, so a
+    calibration never changes them. With ``min_probability`` (needs a calibrated model) a row whose
+    best probability is below it gets an empty ``label`` and ``yes`` in a last column, ``review``
+    (``no`` for the rows decided). ``data``: a file, folder or ``-`` (standard input), a Corpus or
+    a list of texts. ``counts``, when given, is filled with ``documents`` and ``empty_texts``.
     """
     top = top_labels
     if not 1 <= top <= len(model.labels):
@@ -305,32 +316,60 @@ def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 2
         check_probability("--min-probability", min_probability)
         require_calibration(model, "--min-probability")
     value = "probability" if model.has_probabilities else "score"
-    header = ["row", "label", value]
+    with_id = reader is not None and reader.id_column is not None
+    header = ["row"] + (["id"] if with_id else []) + ["label", value]
     for k in range(2, top + 1):
         header += [f"label_{k}", f"{value}_{k}"]
     if min_probability is not None:
         header.append("review")
+    counts = {} if counts is None else counts
+    counts.update(documents=0, empty_texts=0)
     yield header
     row = 0
-    for chunk in iter_chunks(data, chunk_size=chunk_size, reader=reader):
+    chunks = iter_chunks(data, chunk_size=chunk_size, reader=reader) if _is_path(data) else \
+        [as_corpus(data, reader=reader, require_labels=False)]
+    for chunk in chunks:
+        counts["documents"] += len(chunk)
+        counts["empty_texts"] += count_empty(chunk.texts)
         scores = model.scores(chunk.texts)
         best = np.argsort(-scores, axis=1, kind="stable")[:, :top]
         if model.has_probabilities:
             scores = model.probabilities_of(scores)
         for i in range(len(chunk)):
             row += 1
-            out = [row]
+            out = [row, chunk.ids[i] if chunk.ids is not None else ""] if with_id else [row]
             for j in best[i]:
                 out += [model.labels[j], f"{scores[i, j]:.6g}"]
             if min_probability is not None:
                 unsure = scores[i, best[i, 0]] < min_probability
                 if unsure:
-                    out[1] = ""
+                    out[2 if with_id else 1] = ""
                 out.append("yes" if unsure else "no")
             yield out
 
 
-def _corpus(data, reader: ReaderOptions | None, min_labels: int = 2) -> Corpus:
+def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels: int = 2,
+              require_labels: bool = True) -> Corpus:
+    """A :class:`Corpus` from a file or folder, a Corpus, a ``(texts, labels)`` pair or a list of texts.
+
+    Lists are checked like a file's records (texts are strings, labels strings or integers);
+    labelled data must hold at least ``min_labels`` distinct labels.
+    """
     if isinstance(data, Corpus):
         return data
-    return read_corpus(data, reader, min_labels=min_labels)
+    if _is_path(data):
+        return read_corpus(data, reader, require_labels=require_labels, min_labels=min_labels)
+    if labels is None and isinstance(data, tuple) and len(data) == 2 and not isinstance(data[0], str):
+        data, labels = data
+    if labels is None and require_labels:
+        raise InputError("in-memory data", "labels are missing: give (texts, labels) or labels=")
+    corpus = Corpus.from_lists(data, labels)
+    if len(corpus) == 0:
+        raise InputError(corpus.path, "no documents")
+    if require_labels and len(corpus.label_names) < min_labels:
+        raise InputError(corpus.path, f"found {len(corpus.label_names)} label(s); a classifier needs at least {min_labels}")
+    return corpus
+
+
+def _is_path(data) -> bool:
+    return isinstance(data, (str, os.PathLike))

@@ -52,3 +52,22 @@ def test_hinge_has_no_probabilities():
     assert not hasattr(clf, "predict_proba")
     with pytest.raises(AttributeError):
         clf.predict_proba(np.eye(4))
+
+
+def test_raw_texts_with_the_featurizer_inside_equal_the_library_on_the_same_matrix():
+    # Reference: the same engine fed the matrix of lintext's own featurizer by hand (a Pipeline's
+    # job done explicitly) gives the same predictions as the estimator taking raw texts.
+    from lintext.text.featurizer import Featurizer, FeaturizerConfig
+
+    rows = small_corpus_rows()
+    texts, labels = [t for t, _ in rows], [y for _, y in rows]
+    raw = LinTextClassifier(featurizer={"ngrams": (1, 2)}, epochs=5, early_stopping=False).fit(texts[:100], labels[:100])
+    feat = Featurizer(FeaturizerConfig(ngrams=(1, 2)))
+    X = feat.fit_transform(texts[:100])
+    matrix = LinTextClassifier(epochs=5, early_stopping=False).fit(X, labels[:100])
+    assert raw.n_features_in_ == X.shape[1]
+    np.testing.assert_array_equal(raw.predict(texts[100:]), matrix.predict(feat.transform(texts[100:])))
+    np.testing.assert_allclose(raw.predict_proba(texts[100:]), matrix.predict_proba(feat.transform(texts[100:])))
+    with pytest.raises(ValueError, match="list of texts"):
+        raw.predict("one string")
+    assert LinTextClassifier(featurizer=True).fit(texts, labels).score(texts, labels) > 0.8

@@ -60,6 +60,7 @@ def train(
     with status("Writing the model and its report", quiet):
         where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)), force=force)
     print_training_summary(model)
+    warn_about_inputs({"empty_texts": model.info["data"].get("empty_texts")}, quiet)
     out.print(f"model written to {where}", markup=False, soft_wrap=True)
 
 
@@ -79,9 +80,10 @@ def print_training_summary(model) -> None:
 @reader_options
 def predict(
     model_dir: ModelPath,
-    data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines or a folder (a label column is optional).")],
+    data: Annotated[Path, typer.Argument(metavar="DATA", help="Texts to label: CSV/TSV/JSON Lines, plain text (.txt, one "
+                                         "document per line), a folder, or - for standard input (a label column is optional).")],
     out_file: Annotated[Optional[Path], typer.Option("--out", metavar="FILE", help="CSV file to write (default: standard output); only a predictions file is replaced.")] = None,
-    top_labels: Annotated[int, typer.Option("--top-labels", help="Give the N best labels of each text, best first.")] = 1,
+    top_labels: Annotated[int, typer.Option("--top-labels", help="Give the K best labels of each text, best first.")] = 1,
     min_probability: Annotated[Optional[float], typer.Option(
         "--min-probability", metavar="P",
         help="Leave the label empty, and mark the row for review, when the best calibrated probability is below P.")] = None,
@@ -101,7 +103,9 @@ def predict(
     if out_file is not None:
         check_output_file(out_file, "predictions", force, inputs=[data, model_dir])
     model = open_model(model_dir)
-    rows = prediction_rows(model, data, top_labels=top_labels, reader=reader, min_probability=min_probability)
+    counts: dict = {}
+    rows = prediction_rows(model, str(data), top_labels=top_labels, reader=reader, min_probability=min_probability,
+                           counts=counts)
     header = next(rows)  # validates --top-labels before any output
 
     def write(fh):
@@ -117,6 +121,7 @@ def predict(
                 shutil.copyfileobj(spool, sys.stdout)
         else:
             atomic_file(out_file, write, kind="predictions", force=force)
+    warn_about_inputs(counts, quiet)
     if out_file is not None and not quiet:
         err.print(f"predictions written to {out_file}")
 
@@ -147,7 +152,7 @@ def evaluate(
 
     model = open_model(model_dir)
     with status(f"Evaluating on {data}", quiet or as_json):
-        result = evaluate_model(model, data, reader, target_accuracy=target_accuracy,
+        result = evaluate_model(model, str(data), reader, target_accuracy=target_accuracy,
                                 unknown_labels="skip" if skip_unknown else "count")
     warn_about_inputs(result, quiet)
     rows = coverage_rows(result["coverage"]) if result.get("coverage") else None
@@ -165,7 +170,7 @@ def evaluate(
     for col in ("label", "precision", "recall", "F1", "documents", "predicted"):
         table.add_column(col, justify="left" if col == "label" else "right")
     for name, m in result["per_label"].items():
-        table.add_row(Text(name + ("" if m["known"] else " (unknown to the model)")), _score(m["precision"]),
+        table.add_row(Text(name + ("" if m["known"] else " (unknown)")), _score(m["precision"]),
                       _score(m["recall"]), f"{m['f1']:.3f}", str(m["support"]), str(m["predicted"]))
     out.print(table)
     out.print(AVERAGE_NOTE, markup=False)
@@ -224,7 +229,7 @@ def warn_about_inputs(result: dict, quiet: bool) -> None:
         err.print(f"warning: {unknown['documents']} document(s) have a label the model never saw, {unknown['handling']}: "
                   f"{labels}", markup=False, soft_wrap=True)
     if result.get("empty_texts"):
-        err.print(f"warning: {result['empty_texts']} document(s) have an empty text (labelled from the biases alone)",
+        err.print(f"warning: {result['empty_texts']} document(s) have an empty text: they carry no features, only the biases speak for them",
                   markup=False, soft_wrap=True)
 
 

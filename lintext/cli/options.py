@@ -63,16 +63,26 @@ def _group(target: str, params: list, build):
 
 # ------------------------------------------------------------------ reading
 
-def _reader(format, text_column, label_column):
+def _reader(format, text_column, label_column, id_column, header):
     from ..text.readers import ReaderOptions  # the readers load numpy only when a command runs
 
-    return ReaderOptions(format=format, text_column=text_column, label_column=label_column).validate()
+    return ReaderOptions(format=format, text_column=text_column, label_column=label_column, id_column=id_column,
+                         header=header).validate()
 
 
 reader_options = _group("reader", [
-    ("format", Annotated[Optional[str], typer.Option("--format", help="folder, csv, tsv or jsonl (default: from the path).")], None),
-    ("text_column", Annotated[str, typer.Option("--text-column", help="Column or field holding the text.")], "text"),
-    ("label_column", Annotated[str, typer.Option("--label-column", help="Column or field holding the label.")], "label"),
+    ("format", Annotated[Optional[str], typer.Option(
+        "--format", help="folder, csv, tsv, jsonl or lines (plain text, one document per line); default: from the "
+                         "path (.txt is lines; - for standard input is lines).")], None),
+    ("text_column", Annotated[str, typer.Option(
+        "--text-column", help="Column or field holding the text (a header name, or a position from 1).")], "text"),
+    ("label_column", Annotated[str, typer.Option(
+        "--label-column", help="Column or field holding the label (a header name, or a position from 1).")], "label"),
+    ("id_column", Annotated[Optional[str], typer.Option(
+        "--id-column", help="Column or field holding an identifier, carried through to the predictions.")], None),
+    ("header", Annotated[bool, typer.Option(
+        "--header/--no-header", help="Whether a CSV/TSV file starts with a header line; without one, give columns "
+                                     "by position (--text-column 2 --label-column 1).")], True),
 ], _reader)
 
 

@@ -1,4 +1,9 @@
-"""Readers for labelled text: folder-per-label trees, CSV/TSV and JSON Lines.
+"""Readers for labelled text: folder-per-label trees, CSV/TSV, JSON Lines and plain text.
+
+``-`` reads standard input (plain text unless ``format`` says otherwise). Plain text
+(``lines``, suffix ``.txt``) is one document per line, unlabelled; a blank line is an empty
+document, so record numbers stay line numbers. CSV/TSV columns are chosen by header name or,
+for files without a header (``header=False``), by position counted from 1.
 
 Every reader yields :class:`Record` objects carrying the position they came
 from, so that later errors (an unknown label in a dev file, say) can name it.
@@ -8,7 +13,9 @@ message naming the file, the line or record, and the problem.
 
 from __future__ import annotations
 
+import contextlib
 import csv
+import itertools
 import json
 import os
 import sys
@@ -20,8 +27,9 @@ import numpy as np
 
 from ..errors import ConfigError, InputError
 
-FORMATS = ("folder", "csv", "tsv", "jsonl")
-_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".jsonl": "jsonl", ".ndjson": "jsonl"}
+FORMATS = ("folder", "csv", "tsv", "jsonl", "lines")
+_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".jsonl": "jsonl", ".ndjson": "jsonl", ".txt": "lines"}
+STDIN = "-"
 
 csv.field_size_limit(min(sys.maxsize, 2**31 - 1))
 
@@ -34,11 +42,23 @@ class ReaderOptions:
     format: str | None = None
     text_column: str = "text"
     label_column: str = "label"
+    id_column: str | None = None
+    header: bool = True
 
     def validate(self) -> "ReaderOptions":
         if self.format is not None and self.format not in FORMATS:
             raise ConfigError("--format", self.format, f"choose one of {', '.join(FORMATS)}")
+        if not self.header:  # (the label column is checked when a command needs labels)
+            for option, value in (("--text-column", self.text_column), ("--id-column", self.id_column)):
+                if value is not None and column_position(value) is None:
+                    raise ConfigError(option, value, "a file without a header names its columns by position: 1, 2, ...")
         return self
+
+
+def column_position(value) -> int | None:
+    """``value`` as a 0-based column index when it is a whole number from 1 (``"2"`` -> 1), else None."""
+    text = str(value).strip()
+    return int(text) - 1 if text.isdigit() and int(text) >= 1 else None
 
 
 @dataclass
@@ -46,6 +66,7 @@ class Record:
     text: str
     label: str | None
     source: str  # "file:line" or the document's own file
+    id: str | None = None  # the --id-column value, carried to the predictions
 
 
 @dataclass
@@ -57,10 +78,27 @@ class Corpus:
     sources: list[str]
     path: str = ""
     label_names: list[str] = field(default_factory=list)
+    ids: list[str | None] | None = None
 
     def __post_init__(self):
         if not self.label_names:
             self.label_names = sorted({lab for lab in self.labels if lab is not None})
+
+    @classmethod
+    def from_lists(cls, texts, labels=None, path: str = "in-memory data") -> "Corpus":
+        """A corpus from in-memory texts and (optionally) labels, checked like a file's records."""
+        if isinstance(texts, str) or not hasattr(texts, "__len__"):
+            raise InputError(path, "texts must be a list of strings")
+        texts = list(texts)
+        labels = [None] * len(texts) if labels is None else list(labels)
+        if len(labels) != len(texts):
+            raise InputError(path, f"{len(texts)} texts but {len(labels)} labels")
+        for i, (text, label) in enumerate(zip(texts, labels)):
+            if not isinstance(text, str):
+                raise InputError(path, f"text must be a string, not {type(text).__name__}", record=f"item {i}")
+            if label is not None:
+                labels[i] = _check_label(label, path, {"record": f"item {i}"})
+        return cls(texts, labels, [f"{path}, item {i}" for i in range(len(texts))], path)
 
     def __len__(self) -> int:
         return len(self.texts)
@@ -68,7 +106,8 @@ class Corpus:
     @classmethod
     def from_records(cls, records, path="") -> "Corpus":
         records = list(records)
-        return cls([r.text for r in records], [r.label for r in records], [r.source for r in records], str(path))
+        ids = [r.id for r in records] if any(r.id is not None for r in records) else None
+        return cls([r.text for r in records], [r.label for r in records], [r.source for r in records], str(path), ids=ids)
 
     def subset(self, index) -> "Corpus":
         return Corpus(
@@ -77,6 +116,7 @@ class Corpus:
             [self.sources[i] for i in index],
             self.path,
             list(self.label_names),
+            None if self.ids is None else [self.ids[i] for i in index],
         )
 
     def label_counts(self) -> dict[str, int]:
@@ -99,7 +139,9 @@ class Corpus:
 
 
 def infer_format(path: str | os.PathLike) -> str:
-    """The reader for ``path``: a folder, or by file suffix."""
+    """The reader for ``path``: a folder, or by file suffix; plain text for standard input (``-``)."""
+    if str(path) == STDIN:
+        return "lines"
     p = Path(path)
     if not p.exists():
         raise InputError(p, "no such file or folder")
@@ -121,13 +163,21 @@ def iter_records(
     Parameters
     ----------
     path : file or folder.
-    reader : format (``folder``, ``csv``, ``tsv`` or ``jsonl``; inferred from the path when
-        ``None``) and the column (CSV/TSV) or field (JSON Lines) names of text and label.
+    reader : format (``folder``, ``csv``, ``tsv``, ``jsonl`` or ``lines``; inferred from the
+        path when ``None``), the column (CSV/TSV) or field (JSON Lines) names of text, label
+        and id, and whether a CSV/TSV file has a header line.
     require_labels : when False, a missing label column gives records with label ``None``.
     """
     reader = (reader or ReaderOptions()).validate()
     fmt = reader.format or infer_format(path)
     text_column, label_column = reader.text_column, reader.label_column
+    if fmt == "lines" and require_labels:
+        raise InputError(path, "plain text (one document per line) has no labels; give labelled data as "
+                               "CSV, TSV, JSON Lines or a folder (--format)")
+    if str(path) == STDIN:
+        if fmt == "folder":
+            raise ConfigError("--format", fmt, "standard input holds a file, not a folder")
+        return _iter_format(fmt, STDIN, reader, require_labels)
     p = Path(path)
     if not p.exists():
         raise InputError(p, "no such file or folder")
@@ -137,9 +187,15 @@ def iter_records(
         return _iter_folder(p)
     if p.is_dir():
         raise InputError(p, f"is a folder, not a {fmt} file")
+    return _iter_format(fmt, p, reader, require_labels)
+
+
+def _iter_format(fmt: str, p, reader: ReaderOptions, require_labels: bool):
+    if fmt == "lines":
+        return _iter_lines(p)
     if fmt == "jsonl":
-        return _iter_jsonl(p, text_column, label_column, require_labels)
-    return _iter_delimited(p, "\t" if fmt == "tsv" else ",", text_column, label_column, require_labels)
+        return _iter_jsonl(p, reader.text_column, reader.label_column, require_labels, reader.id_column)
+    return _iter_delimited(p, "\t" if fmt == "tsv" else ",", reader, require_labels)
 
 
 def read_corpus(
@@ -173,12 +229,12 @@ def iter_chunks(path, chunk_size: int = 20000, reader: ReaderOptions | None = No
 # ---------------------------------------------------------------- decoding
 
 
-def _decoded_lines(path: Path) -> Iterator[str]:
-    """Lines of a UTF-8 file (a BOM is dropped); invalid bytes name the line and byte offset,
-    a failed read (permission, I/O error) the line it stopped at."""
+def _decoded_lines(path) -> Iterator[str]:
+    """Lines of a UTF-8 file or of standard input (``-``); a BOM is dropped; invalid bytes name the
+    line and byte offset, a failed read (permission, I/O error) the line it stopped at."""
     number = 0
     try:
-        with open(path, "rb") as fh:
+        with (contextlib.nullcontext(sys.stdin.buffer) if str(path) == STDIN else open(path, "rb")) as fh:
             offset = 0
             for number, raw in enumerate(fh, start=1):
                 try:
@@ -251,41 +307,79 @@ def _check_label(label, path: Path, where: dict) -> str:
     return str(label).strip()
 
 
-def _iter_delimited(path: Path, delimiter: str, text_column: str, label_column: str, require_labels: bool):
+def _iter_delimited(path, delimiter: str, reader: ReaderOptions, require_labels: bool):
     lines = _decoded_lines(path)
-    reader = csv.reader(lines, delimiter=delimiter, strict=True)
+    rows = csv.reader(lines, delimiter=delimiter, strict=True)
+    name = _display(path)
     try:
-        header = next(reader, None)
-        if header is None or not any(h.strip() for h in header):
-            raise InputError(path, "empty file" if header is None else "empty header line", line=None if header is None else 1)
-        header = [h.strip() for h in header]
-        if text_column not in header:
-            raise InputError(path, f"no column {text_column!r} in the header (columns: {', '.join(header)})", line=1)
-        text_at = header.index(text_column)
-        label_at = header.index(label_column) if label_column in header else None
-        if label_at is None and require_labels:
-            raise InputError(path, f"no column {label_column!r} in the header (columns: {', '.join(header)})", line=1)
-        start = reader.line_num + 1
+        first = next(rows, None)
+        if first is None or not any(h.strip() for h in first):
+            raise InputError(name, "empty file" if first is None else "empty header line", line=None if first is None else 1)
+        if reader.header:
+            header = [h.strip() for h in first]
+            width = len(header)
+        else:
+            header, width = None, len(first)
+        text_at = _column(name, header, width, reader.text_column, "text column", required=True)
+        label_at = _column(name, header, width, reader.label_column, "label column", required=require_labels)
+        id_at = _column(name, header, width, reader.id_column, "id column", required=True) if reader.id_column else None
+        pending = [] if reader.header else [first]
+        start = 1 if not reader.header else rows.line_num + 1
         count = 0
-        for row in reader:
+        for row in itertools.chain(pending, rows):
             where = {"line": start}
-            start = reader.line_num + 1
+            start = rows.line_num + 1
             if not row:
                 continue  # blank line
-            if len(row) != len(header):
-                raise InputError(path, f"{len(row)} fields where the header has {len(header)}", **where)
-            label = _check_label(row[label_at], path, where) if label_at is not None else None
+            if len(row) != width:
+                raise InputError(name, f"{len(row)} fields where {'the header' if reader.header else 'line 1'} has {width}", **where)
+            label = _check_label(row[label_at], name, where) if label_at is not None else None
             count += 1
-            yield Record(row[text_at], label, f"{path}:{where['line']}")
+            yield Record(row[text_at], label, f"{name}:{where['line']}", None if id_at is None else row[id_at])
         if count == 0:
-            raise InputError(path, "no records after the header line")
+            raise InputError(name, "no records after the header line")
     except csv.Error as exc:
-        raise InputError(path, f"malformed {'TSV' if delimiter == chr(9) else 'CSV'}: {exc}", line=reader.line_num) from None
+        raise InputError(name, f"malformed {'TSV' if delimiter == chr(9) else 'CSV'}: {exc}", line=rows.line_num) from None
 
 
-def _iter_jsonl(path: Path, text_column: str, label_column: str, require_labels: bool):
+def _column(name, header, width: int, wanted, kind: str, required: bool) -> int | None:
+    """Index of column ``wanted``: by header name, else by position from 1; None when absent and not required."""
+    if wanted is None:
+        return None
+    if header is not None and wanted in header:
+        if header.count(wanted) > 1:
+            raise InputError(name, f"the header names column {wanted!r} {header.count(wanted)} times", line=1)
+        return header.index(wanted)
+    at = column_position(wanted)
+    if at is not None and at < width:
+        return at
+    if not required:
+        return None
+    if header is None:
+        raise InputError(name, f"no column {wanted!r}: without a header, give the {kind} by position, "
+                               f"1 to {width} (--no-header)", line=1)
+    raise InputError(name, f"no column {wanted!r} in the header (columns: {', '.join(header)})", line=1)
+
+
+def _iter_lines(path):
+    """Plain text: one document per line (a blank line is an empty document), unlabelled."""
+    name = _display(path)
     count = 0
     for number, line in enumerate(_decoded_lines(path), start=1):
+        count += 1
+        yield Record(line.rstrip("\r\n"), None, f"{name}:{number}")
+    if count == 0:
+        raise InputError(name, "empty file")
+
+
+def _display(path) -> str:
+    return "<standard input>" if str(path) == STDIN else str(path)
+
+
+def _iter_jsonl(path, text_column: str, label_column: str, require_labels: bool, id_column: str | None = None):
+    count = 0
+    source, path = path, _display(path)
+    for number, line in enumerate(_decoded_lines(source), start=1):
         if not line.strip():
             continue
         where = {"line": number}
@@ -312,8 +406,13 @@ def _iter_jsonl(path: Path, text_column: str, label_column: str, require_labels:
             raise InputError(path, f"no field {label_column!r}", **where)
         else:
             label = None
+        record_id = None
+        if id_column is not None:
+            if id_column not in obj:
+                raise InputError(path, f"no field {id_column!r}", **where)
+            record_id = obj[id_column] if isinstance(obj[id_column], str) else json.dumps(obj[id_column])
         count += 1
-        yield Record(text, label, f"{path}:{number}")
+        yield Record(text, label, f"{path}:{number}", record_id)
     if count == 0:
         raise InputError(path, "empty file")
 

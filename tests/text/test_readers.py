@@ -62,8 +62,11 @@ def test_folder_per_label(tmp_path):
 
 
 def test_format_can_be_forced(tmp_path):
-    path = write(tmp_path / "data.txt", "text\tlabel\na\tx\nb\ty\n")
+    path = write(tmp_path / "data.dat", "text\tlabel\na\tx\nb\ty\n")
     with pytest.raises(InputError, match="cannot tell the format"):
+        read_corpus(path)
+    path = write(tmp_path / "data.txt", "text\tlabel\na\tx\nb\ty\n")
+    with pytest.raises(InputError, match="plain text .* has no labels"):  # .txt is one document per line
         read_corpus(path)
     assert read_corpus(path, ReaderOptions(format="tsv")).labels == ["x", "y"]
 
