@@ -4,11 +4,11 @@ A model directory holds
 
 - ``model.json``: format version, lintext version, ``labels`` in the column
   order of the weights, featurizer state, training options, metrics, history;
-- ``weights.npz``: float arrays ``coef`` (features x labels) and ``intercept``
-  (labels), read with ``allow_pickle=False``;
+- ``weights.npz``: float arrays ``coef`` (features x labels; float32 unless saved with
+  ``precision="float64"``) and ``intercept`` (labels, float64), read with ``allow_pickle=False``;
 - ``vocabulary.tsv``: feature, column index, document frequency in training;
 - ``feature_stats.npz`` (when trained by lintext's engine): per-feature update
-  statistics for the report.
+  statistics for the report, read only when something asks for them (prediction does not).
 
 ``model.json`` may hold a ``calibration`` section (a temperature fitted on the dev set, see
 :mod:`lintext.confidence`); models written without one still load, and their probabilities
@@ -21,12 +21,14 @@ changes a model already at that path.
 
 from __future__ import annotations
 
+import functools
 import json
 import os
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
+import scipy.sparse as sp
 
 from . import __version__
 from .arrays import read_npz
@@ -40,6 +42,15 @@ from .text.featurizer import Featurizer
 
 FORMAT_VERSION = 1
 STAT_NAMES = ("update_count", "abs_update_sum", "effective_step")
+WEIGHT_PRECISIONS = ("float32", "float64")
+
+
+def stored_weights(coef, precision: str = "float32") -> np.ndarray:
+    """``coef`` in the precision a model directory keeps (float32 by default: half the size,
+    and float32's 7 significant digits are far below the noise of a stochastic fit)."""
+    if precision not in WEIGHT_PRECISIONS:
+        raise LinTextError(f"weight precision must be one of {', '.join(WEIGHT_PRECISIONS)}, not {precision!r}")
+    return np.ascontiguousarray(coef, dtype=np.dtype(precision))
 
 
 class Model:
@@ -67,8 +78,19 @@ class Model:
         self.labels = list(labels)
         self.loss = loss
         self.info = dict(info or {})
-        self.feature_stats = feature_stats
+        self._feature_stats = feature_stats  # a dict, None, or a callable reading them on first use
         self.calibration = calibration
+
+    @property
+    def feature_stats(self) -> dict | None:
+        """Per-feature update statistics (``None`` when the model has none); read on first use."""
+        if callable(self._feature_stats):
+            self._feature_stats = self._feature_stats()
+        return self._feature_stats
+
+    @feature_stats.setter
+    def feature_stats(self, value) -> None:
+        self._feature_stats = value
 
     # ------------------------------------------------------------ prediction
 
@@ -77,9 +99,16 @@ class Model:
         return self.matrix_scores(self.featurizer.transform(texts))
 
     def matrix_scores(self, X) -> np.ndarray:
-        """Scores of an already featurized matrix, computed in float64 from the stored weights."""
-        coef = np.asarray(self.coef, dtype=np.float64)
-        return np.asarray(X @ coef) + np.asarray(self.intercept, dtype=np.float64)
+        """Scores of an already featurized matrix, computed in float64 from the stored weights.
+
+        Only the rows of ``coef`` for features present in ``X`` are read (and widened to
+        float64): a few texts cost little whatever the size of the model.
+        """
+        X = sp.csr_matrix(X)
+        used = np.unique(X.indices)
+        part = np.asarray(self.coef[used], dtype=np.float64)
+        compact = sp.csr_matrix((X.data, np.searchsorted(used, X.indices), X.indptr), shape=(X.shape[0], len(used)))
+        return np.asarray(compact @ part) + np.asarray(self.intercept, dtype=np.float64)
 
     def classify(self, texts) -> list[str]:
         """The label of each text (the one with the highest score)."""
@@ -121,19 +150,24 @@ class Model:
             **({"calibration": self.calibration} if self.calibration is not None else {}),
         }
 
-    def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None, force: bool = False) -> Path:
+    def save(self, path: str | os.PathLike, extra: Callable[[Path], None] | None = None, force: bool = False,
+             precision: str = "float32") -> Path:
         """Write the model directory atomically; ``extra(tmpdir)`` may add files before the rename.
 
         An existing ``path`` is replaced only when it is a lintext model directory holding no
         file lintext did not write (or an empty folder), unless ``force``
-        (:func:`lintext.outputs.check_output_folder`); otherwise OutputError.
+        (:func:`lintext.outputs.check_output_folder`); otherwise OutputError. ``precision``: of
+        ``coef`` in ``weights.npz`` (float32 by default; models from :func:`lintext.build_model`
+        already hold float32 weights, so what is saved is what was evaluated).
         """
-        if not np.isfinite(self.coef).all() or not np.isfinite(self.intercept).all():
+        coef = stored_weights(self.coef, precision)
+        if not np.isfinite(coef).all() or not np.isfinite(self.intercept).all():
             raise LinTextError("refusing to save a model with non-finite weights")
         target = Path(path)
-        return atomic_directory(target, lambda tmp: (self._write(tmp), extra and extra(tmp)), kind="model", force=force)
+        return atomic_directory(target, lambda tmp: (self._write(tmp, coef), extra and extra(tmp)), kind="model",
+                                force=force)
 
-    def _write(self, folder: Path) -> None:
+    def _write(self, folder: Path, coef) -> None:
         try:
             meta, tables = split_confusions(self.to_json())  # large tables go beside model.json
             (folder / "model.json").write_bytes(json_text(meta).encode("utf-8"))
@@ -143,7 +177,7 @@ class Model:
                                "not text; remove it from the training texts or labels") from None
         if tables:
             np.savez(folder / CONFUSION_FILE, **tables)
-        np.savez(folder / "weights.npz", coef=self.coef, intercept=self.intercept)
+        np.savez(folder / "weights.npz", coef=coef, intercept=np.asarray(self.intercept, dtype=np.float64))
         if self.feature_stats is not None:
             np.savez(folder / "feature_stats.npz", **{k: np.asarray(self.feature_stats[k]) for k in STAT_NAMES})
 
@@ -180,8 +214,9 @@ class Model:
         arrays = _read_npz(folder / "weights.npz", {"coef": (n_features, n_labels), "intercept": (n_labels,)})
         _check_scores_are_finite(folder / "weights.npz", arrays["coef"], arrays["intercept"])
         stats = None
-        if (folder / "feature_stats.npz").exists():
-            stats = _read_npz(folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES}, finite=False, kinds="fi")
+        if (folder / "feature_stats.npz").exists():  # read when the report asks, not for prediction
+            stats = functools.partial(_read_npz, folder / "feature_stats.npz", {k: (n_features,) for k in STAT_NAMES},
+                                      finite=False, kinds="fi")
         calibration = _check_calibration(folder / "model.json", meta.get("calibration"))
         info = {k: v for k, v in meta.items()
                 if k not in {"format_version", "lintext_version", "labels", "loss", "featurizer", "n_features", "calibration"}}

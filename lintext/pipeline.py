@@ -19,11 +19,10 @@ from . import confidence
 from .engine.footprint import check_fits
 from .engine.metrics import confusion_counts, label_scores, summary_scores
 from .engine.options import TrainOptions
-from .engine.trainer import fit
 from .errors import ConfigError, InputError
 from .evidence import training_extras
 from .explanation import dev_errors, require_calibration
-from .model import Model
+from .model import Model, stored_weights
 from .text.featurizer import Featurizer, FeaturizerConfig
 from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus, split_dev
 
@@ -148,6 +147,8 @@ def build_model(
     -------
     Model, with ``info`` holding options, history, best epoch and metrics.
     """
+    from .engine.trainer import fit  # numba loads here, not when predicting
+
     report = progress or (lambda event: None)
     if labels is None and isinstance(dev, list) and isinstance(data, (list, tuple)) and len(dev) == len(data) \
             and not (isinstance(data, tuple) and len(data) == 2 and not isinstance(data[0], str)):
@@ -167,7 +168,9 @@ def build_model(
         "metrics": {},
     }
     train_set = prep.train_set
-    model = Model(prep.featurizer, result.coef, result.intercept, prep.labels, topts.loss, info, result.feature_stats)
+    # the weights as the model directory keeps them (float32), so the metrics below are those of the saved model
+    model = Model(prep.featurizer, stored_weights(result.coef), result.intercept, prep.labels, topts.loss, info,
+                  result.feature_stats)
     model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
     finish_with_dev(model, prep)
     if test is not None:

@@ -155,3 +155,34 @@ def test_models_written_before_the_layout_change_still_load(kind):
         assert training["precision"] == "float32" and training["updates"] == "lazy" and "lazy" not in training
     else:
         assert model.featurizer.config.hash_space == 256 and training["updates"] == "dense"
+
+
+def test_weights_are_stored_as_float32_and_predict_as_saved(trained, tmp_path):
+    model, path, texts = trained
+    with np.load(path / "weights.npz", allow_pickle=False) as w:
+        assert w["coef"].dtype == np.float32 and w["intercept"].dtype == np.float64
+    assert model.coef.dtype == np.float32  # build_model evaluates the weights it will save
+    loaded = lintext.open_model(path)
+    np.testing.assert_array_equal(loaded.coef, model.coef)
+    np.testing.assert_array_equal(loaded.scores(texts), model.scores(texts))
+    # scores against the plain product in float64 (NumPy/SciPy directly)
+    X = model.featurizer.transform(texts)
+    np.testing.assert_allclose(model.scores(texts), X @ model.coef.astype(np.float64) + model.intercept, rtol=1e-12)
+    wide = model.save(tmp_path / "wide", precision="float64")
+    with np.load(wide / "weights.npz", allow_pickle=False) as w:
+        assert w["coef"].dtype == np.float64
+
+
+def test_feature_statistics_are_read_only_when_asked(trained, tmp_path):
+    import shutil
+
+    from lintext.errors import ModelFileError
+
+    model, path, texts = trained
+    copy = tmp_path / "copy"
+    shutil.copytree(path, copy)
+    (copy / "feature_stats.npz").write_bytes(b"not an archive")
+    loaded = lintext.open_model(copy)
+    assert loaded.classify(texts) == model.classify(texts)  # prediction never reads them
+    with pytest.raises(ModelFileError, match="feature_stats.npz: not a readable NumPy archive"):
+        loaded.feature_stats

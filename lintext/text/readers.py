@@ -1,7 +1,8 @@
 """Readers for labelled text: folder-per-label trees, CSV/TSV, JSON Lines and plain text.
 
 ``-`` reads standard input (plain text unless ``format`` says otherwise). Plain text
-(``lines``, suffix ``.txt``) is one document per line, unlabelled; a blank line is an empty
+(``lines``, suffix ``.txt``) is one document per line, unlabelled; CSV follows RFC 4180
+quoting, TSV the IANA form without quoting (quotes are text); a blank line is an empty
 document, so record numbers stay line numbers. CSV/TSV columns are chosen by header name or,
 for files without a header (``header=False``), by position counted from 1.
 
@@ -309,7 +310,10 @@ def _check_label(label, path: Path, where: dict) -> str:
 
 def _iter_delimited(path, delimiter: str, reader: ReaderOptions, require_labels: bool):
     lines = _decoded_lines(path)
-    rows = csv.reader(lines, delimiter=delimiter, strict=True)
+    # CSV: RFC 4180 quoting. TSV: the IANA text/tab-separated-values form, no quoting (a field holds
+    # no tab and no line break; quotes are text), as "label<TAB>text" files are usually written.
+    quoting = csv.QUOTE_NONE if delimiter == "\t" else csv.QUOTE_MINIMAL
+    rows = csv.reader(lines, delimiter=delimiter, strict=True, quoting=quoting)
     name = _display(path)
     try:
         first = next(rows, None)

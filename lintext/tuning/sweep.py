@@ -48,8 +48,8 @@ from ..engine.options import TrainOptions
 from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
 from ..files import atomic_directory, atomic_file, write_json
+from ..model import Model, stored_weights
 from ..outputs import output_kind, process_alive, remove_path
-from ..model import Model
 from ..pipeline import PreparedData, Progress, finish_with_dev, prepare_data
 from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
 from ..resources import capped_processes, stop_worker_processes
@@ -321,6 +321,7 @@ def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, histor
         "metrics": {},
         "sweep": {"runs": n_runs, "run": row["run"], "stop_metric": options.stop_metric},
     }
-    model = Model(prepared.featurizer, weights["coef"], weights["intercept"], prepared.labels, options.loss, info, stats)
+    model = Model(prepared.featurizer, stored_weights(weights["coef"]), weights["intercept"], prepared.labels, options.loss,
+                  info, stats)
     finish_with_dev(model, prepared)  # calibration, dev errors and dev metrics, as after train
     return model

@@ -129,7 +129,8 @@ def test_feature_statistics_equal_a_hand_replay_of_sgd(tiny_model, tmp_path):
     for first in itertools.permutations(range(4)):
         for again in itertools.permutations(range(4)):
             W, b, count, moved = replay_sgd([first, again])
-            if np.allclose(W, model.coef, rtol=0, atol=1e-12) and np.allclose(b, model.intercept, rtol=0, atol=1e-12):
+            # the model keeps its weights in float32 (half an ulp: 6e-8 of the value); the biases in float64
+            if np.allclose(W, model.coef, rtol=1e-7, atol=1e-9) and np.allclose(b, model.intercept, rtol=0, atol=1e-12):
                 matches.append((W, count, moved))
     assert matches, "no order of the 4 documents reproduces lintext's SGD weights"
     W, count, moved = matches[0]
@@ -140,9 +141,12 @@ def test_feature_statistics_equal_a_hand_replay_of_sgd(tiny_model, tmp_path):
     # hand replay: 2 epochs x df steps per feature
     assert table["update_count"].tolist() == count.tolist() == [4, 4, 4, 2, 4]
     np.testing.assert_allclose(table["abs_update_sum"], moved, rtol=1e-12)  # hand replay
-    np.testing.assert_allclose(table["weight_norm"], np.sqrt((W**2).sum(axis=1)), rtol=1e-12)  # L2 norm of the replayed rows
-    assert table["max_weight_label"] == [["a", "b"][j] for j in W.argmax(axis=1)]
-    np.testing.assert_allclose(table["max_weight"], W.max(axis=1), rtol=1e-12)
+    # L2 norm of the replayed rows, each centred across labels (plain SGD keeps the mean near zero anyway)
+    Wc = W - W.mean(axis=1, keepdims=True)
+    np.testing.assert_allclose(table["weight_norm"], np.sqrt((Wc**2).sum(axis=1)), rtol=1e-6)
+    np.testing.assert_allclose(table["raw_weight_norm"], np.sqrt((W**2).sum(axis=1)), rtol=1e-6)
+    assert table["max_weight_label"] == [["a", "b"][j] for j in Wc.argmax(axis=1)]
+    np.testing.assert_allclose(table["max_weight"], Wc.max(axis=1), rtol=1e-6)
     # plain SGD with a constant schedule: every feature's step size is the learning rate, 0.5
     assert table["effective_step"].tolist() == [0.5] * 5
     # apple, grape, green and red are words of "a" and "b" documents alike; melon only of a "b" one

@@ -38,6 +38,13 @@ def test_csv_last_record_without_newline_and_column_order(tmp_path):
     assert corpus.texts == ["first", "second"] and corpus.label_names == ["x", "y"]
 
 
+def test_tsv_has_no_quoting(tmp_path):
+    # IANA text/tab-separated-values: fields hold no tab or line break and no quoting, so quotes are text
+    path = write(tmp_path / "q.tsv", 'art\t"critic" said the dog\nart\tplain "quote\nlaw\tx\n')
+    corpus = read_corpus(path, ReaderOptions(header=False, text_column="2", label_column="1"))
+    assert corpus.texts == ['"critic" said the dog', 'plain "quote', "x"]
+
+
 def test_tsv_and_custom_columns(tmp_path):
     path = write(tmp_path / "d.tsv", "body\tteam\nhello there\tx\nbye now\ty\n")
     corpus = read_corpus(path, ReaderOptions(text_column="body", label_column="team"))

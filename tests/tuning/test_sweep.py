@@ -99,7 +99,8 @@ def test_saved_best_run_is_the_best_row_of_the_table(small_split, tmp_path):
     proba = scipy_softmax(model.scores(dev.texts), axis=1)
     # scikit-learn's log loss (mean cross-entropy, natural log) and accuracy of the reloaded model
     # against the table's row of the best run.
-    assert log_loss(y_dev, proba, labels=range(len(model.labels))) == pytest.approx(float(best_row["dev_loss"]), rel=1e-9)
+    # (the table's row was computed on the run's float64 weights; the saved model keeps them in float32)
+    assert log_loss(y_dev, proba, labels=range(len(model.labels))) == pytest.approx(float(best_row["dev_loss"]), rel=1e-6)
     assert accuracy_score(y_dev, proba.argmax(axis=1)) == pytest.approx(float(best_row["dev_accuracy"]))
     # macro-F1 over the labels present in the truth or the predictions (scikit-learn without `labels`)
     macro_f1 = f1_score(y_dev, proba.argmax(axis=1), average="macro")
