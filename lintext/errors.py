@@ -55,14 +55,17 @@ class ModelFileError(LinTextError):
 class DivergenceError(LinTextError):
     """Training produced a non-finite or exploding loss."""
 
-    def __init__(self, learning_rate: float, epoch: int, loss: float, optimizer: str = ""):
+    def __init__(self, learning_rate: float, epoch: int, loss: float, optimizer: str = "",
+                 suggestion: float | None = None, basis: str = ""):
         self.learning_rate = learning_rate
         self.epoch = epoch
         self.loss = loss
+        self.suggestion = suggestion
         name = f"{optimizer} " if optimizer else ""
+        advice = (f"try {suggestion:g}" + (f" ({basis})" if basis else "")) if suggestion is not None else \
+            "try a smaller one (lintext probe suggests one)"
         super().__init__(
-            f"training diverged at epoch {epoch} (loss {loss:.4g}) with {name}learning rate "
-            f"{learning_rate:g}; try a smaller one, e.g. {learning_rate / 10:g}"
+            f"training diverged at epoch {epoch} (loss {loss:.4g}) with {name}learning rate {learning_rate:g}; {advice}"
         )
 
 

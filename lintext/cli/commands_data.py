@@ -39,4 +39,8 @@ def stats(
     out.print(table)
     out.print(f"features: {info['features']:,} (columns {info['columns']:,})")
     out.print(f"non-zeros: {info['nonzeros']:,} ({info['nonzeros_per_document']:.1f} per document)")
-    out.print(f"features in 1 document: {info['share_df1']:.1%}; in 2 documents: {info['share_df2']:.1%}")
+    before = info["before_filter"]
+    out.print(f"before the document-frequency filter (--min-df, --max-df, --max-features): {before['features']:,} features, "
+              f"{before['share_df1']:.1%} in 1 document, {before['share_df2']:.1%} in 2 documents", markup=False, soft_wrap=True)
+    out.print(f"after it: {info['features']:,} features, {info['share_df1']:.1%} in 1 document, "
+              f"{info['share_df2']:.1%} in 2 documents", markup=False, soft_wrap=True)

@@ -8,6 +8,7 @@ is no dev set; history rows keep the keys ``train_loss``, ``dev_loss``, ``dev_ac
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -66,6 +67,32 @@ def dev_scores(S, y_dev, loss) -> dict:
         "dev_accuracy": float(np.mean(pred == y_dev)),
         "dev_macro_f1": macro_f1(y_dev, pred, S.shape[1]),
     }
+
+
+def suggest_learning_rate(learning_rate: float, loss: float, zero_model_loss: float, history: list) -> tuple:
+    """A learning rate to propose after a divergence, from the run's own numbers, and why.
+
+    Softmax and hinge losses grow about linearly with the size of the weights, and in a run that
+    blows up the weights grow with the step: a rate ``learning_rate * zero_model_loss / loss``
+    would have kept the loss near that of the all-zero model. With a non-finite loss there is no
+    such scale: after epochs that went well the rate was near the edge (a third of it); from the
+    first epoch on, it was far off (a thousandth). Rounded down to 1, 2 or 5 times a power of ten,
+    and always below ``learning_rate``. Returns ``(rate, reason)``.
+    """
+    finite = math.isfinite(loss) and loss > 0
+    if finite:
+        rate, reason = learning_rate * zero_model_loss / loss, f"the loss reached {loss / zero_model_loss:.3g} times " \
+            "that of the all-zero model, and it grows about in proportion to the step size"
+    elif history:
+        rate, reason = learning_rate / 3, f"{len(history)} epoch(s) went well before the loss overflowed"
+    else:
+        rate, reason = learning_rate / 1000, "the loss overflowed in the first epoch; lintext probe can narrow it down"
+    rate = min(rate, learning_rate / 2)
+    if not rate > 0:
+        return None, ""
+    power = 10.0 ** math.floor(math.log10(rate))
+    step = max(m for m in (1, 2, 5) if m * power <= rate * (1 + 1e-12))
+    return step * power, reason
 
 
 @dataclass

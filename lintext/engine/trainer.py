@@ -45,7 +45,7 @@ import scipy.sparse as sp
 from ..errors import ConfigError, DivergenceError
 from . import kernels, losses
 from .lbfgs import fit_lbfgs
-from .monitor import Monitor, TrainResult, history_row
+from .monitor import Monitor, TrainResult, history_row, suggest_learning_rate
 from .optimizers import kernel_hyperparameters
 from .options import TrainOptions
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
@@ -142,7 +142,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
         train_loss = loss_sum / n
         if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
                 or not kernels.all_finite(params)):
-            raise DivergenceError(base_lr, epoch, train_loss, options.optimizer)
+            suggestion, basis = suggest_learning_rate(base_lr, train_loss, zero_model_loss, history)
+            raise DivergenceError(base_lr, epoch, train_loss, options.optimizer, suggestion, basis)
         if epoch == 1:
             reference_loss = max(train_loss, zero_model_loss)
         last_lr = schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)

@@ -407,11 +407,24 @@ def _read_vocabulary(path: Path):
 
 
 def corpus_stats(corpus, config: FeaturizerConfig | None = None) -> dict:
-    """Documents, label counts and the feature space a configuration gives on ``corpus``."""
+    """Documents, label counts and the feature space a configuration gives on ``corpus``.
+
+    ``share_df1`` / ``share_df2``: shares of the kept features found in exactly one / two
+    documents; ``before_filter`` holds the same (``features``, ``share_df1``, ``share_df2``) for
+    every feature the n-gram settings produce before ``min_df``, ``max_df`` and
+    ``max_features`` (with the default ``min_df`` of 2 the share in one document after the
+    filter is 0 by construction, so only the share before it says how many were dropped).
+    """
+    from dataclasses import replace
+
+    config = config or FeaturizerConfig()
     featurizer = Featurizer(config)
     X = featurizer.fit_transform(corpus.texts)
     df = featurizer.document_frequency
     used = df[df > 0]
+    unfiltered = Featurizer(replace(config, min_df=1, max_df=1.0, max_features=None))
+    unfiltered.fit(corpus.texts)
+    every = unfiltered.document_frequency[unfiltered.document_frequency > 0]
     return {
         "documents": len(corpus),
         "labels": corpus.label_counts(),
@@ -421,4 +434,9 @@ def corpus_stats(corpus, config: FeaturizerConfig | None = None) -> dict:
         "nonzeros_per_document": float(X.nnz / max(1, X.shape[0])),
         "share_df1": float((used == 1).mean()) if used.size else 0.0,
         "share_df2": float((used == 2).mean()) if used.size else 0.0,
+        "before_filter": {
+            "features": int(every.size),
+            "share_df1": float((every == 1).mean()) if every.size else 0.0,
+            "share_df2": float((every == 2).mean()) if every.size else 0.0,
+        },
     }

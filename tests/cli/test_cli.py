@@ -23,7 +23,20 @@ def test_stats_reports_counts(tiny_csv):
     # digits are dropped by the default token pattern (two or more word characters).
     assert "12 documents, 2 labels" in result.output
     assert "features: 6 " in result.output
-    assert "in 1 document: 0.0%" in result.output
+    # before the filter the same six words (df 6 each): none in one or two documents
+    assert "before the document-frequency filter (--min-df, --max-df, --max-features): 6 features, 0.0% in 1 document" in result.output
+    assert "after it: 6 features, 0.0% in 1 document, 0.0% in 2 documents" in result.output
+
+
+def test_stats_shares_before_and_after_the_filter(tmp_path):
+    # by hand: words (two or more letters) and their document counts: alpha 3, beta 2, gamma 1, delta 1;
+    # before the filter 4 features, 2 of them (50%) in one document, 1 (25%) in two; --min-df 2 keeps alpha and beta:
+    # none in one document, beta (50%) in two.
+    path = write(tmp_path / "s.csv", "text,label\nalpha beta,a\nalpha gamma,b\nalpha beta delta,a\n")
+    result = run("stats", path, "--ngrams", "1-1", "--weighting", "count")
+    assert result.exit_code == 0, result.output
+    assert "4 features, 50.0% in 1 document, 25.0% in 2 documents" in result.output
+    assert "after it: 2 features, 0.0% in 1 document, 50.0% in 2 documents" in result.output
 
 
 BAD_INPUTS = [
