@@ -43,7 +43,7 @@ def sweep(
 
     Example: lintext sweep data/demo/train.csv --dev data/demo/dev.csv --optimizers sgd,adam --learning-rates 0.01,0.1,1 --out sweeps/demo
     """
-    from ..report.sweep_page import METRIC_NAMES, SHOWN_COLUMNS, TEXT_COLUMNS, cell
+    from ..report.sweep_page import HEADERS, METRIC_NAMES, SHOWN_COLUMNS, TEXT_COLUMNS, cell, ranked
     from ..outputs import check_output_folder
     from ..tuning import sweep as sweeping
 
@@ -60,11 +60,11 @@ def sweep(
     with status(f"Writing {out_dir}", quiet):
         where = result.save(out_dir, force=force)
     metric = METRIC_NAMES[result.stop_metric]
-    table = Table(title=f"{len(result.rows)} runs ranked by {metric}, {result.settings['workers']} worker(s)",
+    table = Table(title=f"{len(result.rows)} runs ranked by {metric} (best first), {result.settings['workers']} worker(s)",
                   box=box.SIMPLE_HEAD, pad_edge=False)
     for col in SHOWN_COLUMNS:
-        table.add_column(col, justify="left" if col in TEXT_COLUMNS else "right", no_wrap=True)
-    for row in result.rows:
+        table.add_column(HEADERS[col], justify="left" if col in TEXT_COLUMNS else "right", no_wrap=True)
+    for row in ranked(result.rows, result.stop_metric):
         table.add_row(*[cell(row, col) for col in SHOWN_COLUMNS], style="bold green" if row["run"] == result.best else None)
     print_wide(table)
     if result.best is None:

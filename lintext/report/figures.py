@@ -347,41 +347,49 @@ def compare_learning(series: list, prefix: str = "cl") -> str | None:
 
 
 def _compare_learning(series):
+    """One loss panel per loss (softmax and hinge losses are on different scales), then dev
+    accuracy and the learning rate; one legend for the whole figure, below it, so no legend
+    covers a line and every model is named once."""
     if not any(history for _, history, _, _ in series):
         return None
-    fig, (ax_loss, ax_acc, ax_lr) = new_figure(10.5, 3.6, 3)
-    losses = sorted({loss for _, _, _, loss in series})
+    losses = sorted({loss for _, history, _, loss in series if history})
+    n_panels = len(losses) + 2
+    fig = Figure(figsize=(10.5, 3.6 if n_panels <= 3 else 6.6), layout="constrained")
+    grid = fig.subplots(1 if n_panels <= 3 else 2, 3 if n_panels <= 3 else 2, squeeze=False).ravel().tolist()
+    loss_axes = dict(zip(losses, grid[:len(losses)]))
+    ax_acc, ax_lr = grid[len(losses)], grid[len(losses) + 1]
     any_dev = any_lr = False
     all_epochs = []
-    for k, (name, history, best, _) in enumerate(series):
+    handles = []
+    for k, (name, history, best, loss) in enumerate(series):
         if not history:
             continue
         colour = SERIES[k % len(SERIES)]
         epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)])
         all_epochs += epochs.tolist()
-        ax_loss.plot(epochs, _finite(r.get("train_loss") for r in history), color=colour, label=f"{name} train")
+        ax_loss = loss_axes[loss]
+        (line,) = ax_loss.plot(epochs, _finite(r.get("train_loss") for r in history), color=colour, label=name)
+        handles.append(line)
         dev = _finite(r.get("dev_loss") for r in history)
         if np.isfinite(dev).any():
-            ax_loss.plot(epochs, dev, color=colour, ls="--", label=f"{name} dev")
+            ax_loss.plot(epochs, dev, color=colour, ls="--")
         acc = _finite(r.get("dev_accuracy") for r in history)
         if np.isfinite(acc).any():
             any_dev = True
-            ax_acc.plot(epochs, acc, color=colour, marker="o", ms=3, label=name)
-            if best:
-                at = [i for i, e in enumerate(epochs) if e == best]
-                if at:
-                    ax_acc.plot([best], [acc[at[0]]], color=colour, ls="none", **BEST_EPOCH)
+            ax_acc.plot(epochs, acc, color=colour, marker="o", ms=3)
+            at = [i for i, e in enumerate(epochs) if e == best] if best else []
+            if at:
+                ax_acc.plot([best], [acc[at[0]]], color=colour, ls="none", **BEST_EPOCH)
         lr = _finite(r.get("learning_rate") for r in history)
         if np.isfinite(lr).any() and (lr[np.isfinite(lr)] > 0).all():
             any_lr = True
-            ax_lr.plot(epochs, lr, color=colour, drawstyle="steps-mid", label=name)
-    ax_loss.set_ylabel(f"mean {' / '.join(losses)} loss")
-    ax_loss.set_title("Loss (solid: train, dashed: dev)")
-    ax_loss.legend(fontsize=7.5)
+            ax_lr.plot(epochs, lr, color=colour, drawstyle="steps-mid")
+    for loss, ax in loss_axes.items():
+        ax.set_ylabel(f"mean {loss} loss")
+        ax.set_title(f"{loss.capitalize()} loss (solid: train, dashed: dev)")
     if any_dev:
         ax_acc.set_ylabel("dev accuracy")
         ax_acc.set_title("Dev accuracy (ring: best epoch)")
-        ax_acc.legend()
     else:
         _note(ax_acc, "no dev set")
         ax_acc.set_title("Dev accuracy")
@@ -389,11 +397,13 @@ def _compare_learning(series):
         ax_lr.set_yscale("log")
         plain_log(ax_lr)
         ax_lr.set_ylabel("learning rate in effect (log scale)")
-        ax_lr.legend()
     else:
         _note(ax_lr, "no learning rate recorded")
     ax_lr.set_title("Learning rate")
-    for ax in (ax_loss, ax_acc, ax_lr):
+    for ax in grid[:len(losses) + 2]:
         if ax.has_data():
             _epoch_axis(ax, all_epochs)
+    for ax in grid[len(losses) + 2:]:
+        ax.set_visible(False)
+    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 4))
     return fig

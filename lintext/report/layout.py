@@ -2,9 +2,10 @@
 
 The page is one self-contained file: inline CSS (screen and print), figures as inline
 SVG, and a few lines of inline script that only measure the figures after layout
-(``data-figures`` / ``data-figures-ok`` / ``data-figure-sizes`` / ``data-page-errors`` and
-``data-sections``, each section's ``id:top:height``, on ``<body>``, read by the tests that open
-the page in a headless browser and by ``scripts/report_picture.py``). Nothing is
+(``data-figures`` / ``data-figures-ok`` / ``data-figure-sizes`` / ``data-page-errors``,
+``data-tables-clipped`` (tables wider than their box) and ``data-sections``, each section's
+``id:top:height``, on ``<body>``, read by the tests that open the page in a headless browser
+and by ``scripts/report_picture.py``). Nothing is
 fetched from anywhere.
 """
 
@@ -108,6 +109,9 @@ MEASURE_SCRIPT = """(function () {
       where.push(secs[j].id + ':' + Math.round(s.top + window.scrollY) + ':' + Math.round(s.height));
     }
     b.setAttribute('data-sections', where.join(' '));
+    var wide = document.querySelectorAll('div.scroll'), clipped = 0;
+    for (var k = 0; k < wide.length; k++) { if (wide[k].scrollWidth > wide[k].clientWidth + 1) { clipped += 1; } }
+    b.setAttribute('data-tables-clipped', String(clipped));
     if (!b.hasAttribute('data-page-errors')) { b.setAttribute('data-page-errors', '0'); }
   }
   measure();

@@ -36,8 +36,10 @@ GUIDE = {
              "that falls from left to right means the optimizer gives rare features larger steps than frequent ones.",
     "compare_frequency": "One line per model, medians per document-frequency bin on shared log axes (band: middle half): "
                          "where a model's line lies higher at the rare end, that optimizer moved rare features further.",
-    "compare_learning": "One colour per model on shared axes: solid lines are train loss and dashed dev loss, the stars "
-                        "mark each model's best epoch, and the right panel is the learning rate in effect.",
+    "compare_learning": "One colour per model, named in the legend below the panels: one loss panel per loss (softmax "
+                        "and hinge losses are on different scales, so they never share an axis), solid lines train loss "
+                        "and dashed dev loss, rings on the dev accuracy mark each model's best epoch, and the last panel "
+                        "is the learning rate in effect.",
 }
 
 
@@ -264,8 +266,12 @@ def comparison_page(entries: list, title: str | None = None) -> str:
                     "so their curves are not directly comparable.</p>")
     sections = [section("models", "Models", summary)]
     freq = figures.compare_frequency(bins_of)
+    without = [name for name, bins in bins_of if not any(math.isfinite(r["median_update"]) and r["median_update"] > 0
+                                                         for r in bins)]
+    missing = (f'<p class="note">Not in this figure, for want of update statistics: {escape(", ".join(without))}.</p>'
+               if without and freq is not None else "")
     sections.append(section("frequency", "Frequency and updates", figure_block(
-        freq, GUIDE["compare_frequency"], "None of these models has update statistics.")))
+        freq, GUIDE["compare_frequency"], "None of these models has update statistics.") + missing))
     series = [(name, (m.info or {}).get("history") or [], (m.info or {}).get("best_epoch"), m.loss) for name, m, _ in entries]
     sections.append(section("learning", "Learning curves", figure_block(
         figures.compare_learning(series), GUIDE["compare_learning"], "None of these models has a per-epoch history.")))
@@ -292,4 +298,6 @@ def _compare_bins(bins_of: list) -> str:
             rows.append(row)
         parts.append(f"<div><h3>{heading}</h3>" + table(["document frequency"] + [escape(n) for n, _ in bins_of], rows,
                                                         set(range(1, len(bins_of) + 1))) + "</div>")
+    if len(bins_of) > 2:  # side by side, three tables of many models would hide columns behind a scroll bar
+        return "".join(parts)
     return '<div class="labels">' + "".join(parts) + "</div>"

@@ -20,11 +20,27 @@ from .layout import figure_block, fmt, page, section, table
 # Every column of sweep.csv, in order; the terminal and the page show SHOWN_COLUMNS.
 SWEEP_COLUMNS = ("run", "optimizer", "learning_rate", "status", "stop_metric", "stop_value", "dev_accuracy",
                  "dev_macro_f1", "dev_loss", "best_epoch", "epochs_run", "diverged_epoch", "seconds", "cpu_seconds")
-SHOWN_COLUMNS = ("optimizer", "learning_rate", "status", "dev_loss", "dev_accuracy", "dev_macro_f1", "best_epoch",
+SHOWN_COLUMNS = ("rank", "optimizer", "learning_rate", "status", "dev_loss", "dev_accuracy", "dev_macro_f1", "best_epoch",
                  "epochs_run", "seconds")
 TEXT_COLUMNS = ("optimizer", "status", "stop_metric")
+# The headers the terminal and the page show, spelled out (sweep.csv keeps the keys).
+HEADERS = {"rank": "rank", "run": "run", "optimizer": "optimizer", "learning_rate": "learning rate", "status": "status",
+           "stop_metric": "stop metric", "stop_value": "stop value", "dev_loss": "dev loss", "dev_accuracy": "dev accuracy",
+           "dev_macro_f1": "dev macro-F1", "best_epoch": "best epoch", "epochs_run": "epochs run",
+           "diverged_epoch": "diverged at epoch", "seconds": "seconds", "cpu_seconds": "processor seconds"}
 METRIC_NAMES = {"dev-loss": "dev loss", "accuracy": "dev accuracy", "macro-f1": "dev macro-F1"}
 METRIC_KEYS = {"dev-loss": "dev_loss", "accuracy": "dev_accuracy", "macro-f1": "dev_macro_f1"}
+
+
+def ranked(rows: list, stop_metric: str) -> list:
+    """The rows best first by ``stop_metric`` at each run's best epoch (lowest dev loss, highest
+    accuracy or macro-F1; ties in grid order), runs without a value (diverged) last; each with its
+    ``rank`` (from 1; None for runs without a value)."""
+    sign = 1.0 if stop_metric == "dev-loss" else -1.0
+    scored = [r for r in rows if r["stop_value"] is not None and math.isfinite(r["stop_value"])]
+    scored.sort(key=lambda r: (sign * r["stop_value"], r["run"]))
+    rest = [r for r in rows if r not in scored]
+    return [{**r, "rank": k} for k, r in enumerate(scored, start=1)] + [{**r, "rank": None} for r in rest]
 
 
 def cell(row: dict, column: str) -> str:
@@ -41,7 +57,7 @@ def sweep_page(result) -> str:
     """The page of a :class:`lintext.tuning.sweep.SweepResult`."""
     metric = result.stop_metric
     data = result.settings.get("data", {})
-    rows = [[escape(cell(row, c)) for c in SHOWN_COLUMNS] for row in result.rows]
+    rows = [[escape(cell(row, c)) for c in SHOWN_COLUMNS] for row in ranked(result.rows, metric)]
     numeric = {i for i, c in enumerate(SHOWN_COLUMNS) if c not in TEXT_COLUMNS}
     best = "" if result.best is None else (f" The best run is <b>{escape(result.rows[result.best]['optimizer'])} at "
                                             f"{result.rows[result.best]['learning_rate']:g}</b>; its model is in "
@@ -50,7 +66,7 @@ def sweep_page(result) -> str:
              f"({fmt(data.get('train_documents'))} documents; dev: {escape(str(data.get('dev', '')))}, "
              f"{fmt(data.get('dev_documents'))} documents), ranked by {METRIC_NAMES[metric]}.{best}</p>")
     sections = [
-        section("runs", "Runs", intro + table(list(SHOWN_COLUMNS), rows, numeric)),
+        section("runs", "Runs", intro + table([HEADERS[c] for c in SHOWN_COLUMNS], rows, numeric)),
         section("rates", f"{METRIC_NAMES[metric].capitalize()} against the learning rate", figure_block(
             figures.render(_metric_figure, "sr", "Stop metric against the learning rate", result),
             "One line per optimizer; the star is the best run, crosses on the bottom edge are runs that diverged.",

@@ -190,7 +190,8 @@ class SweepResult:
                 "runs": [{**row, "history": hist} for row, hist in zip(self.rows, self.histories)]}
 
     def save(self, path: str | os.PathLike, force: bool = False) -> Path:
-        """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model) atomically.
+        """Write ``sweep.csv``, ``sweep.json``, ``sweep.html`` and ``best/`` (the best model, with its
+        ``features.csv`` and ``report.html``) atomically.
 
         An existing ``path`` is replaced only when it is a lintext sweep folder, unless ``force``.
         When no run gave a model, the ``best/`` of the sweep already at ``path`` is kept (and
@@ -205,7 +206,9 @@ class SweepResult:
             write_json(tmp / "sweep.json", self.to_json())
             atomic_file(tmp / "sweep.html", lambda fh: fh.write(sweep_page(self)))
             if self.model is not None:
-                self.model.save(tmp / "best")
+                from ..report.writer import write_report  # matplotlib loads only here
+
+                self.model.save(tmp / "best", extra=lambda folder: write_report(self.model, folder))
             elif keep:  # hard links where the file system has them: no copy of the weights
                 shutil.copytree(previous, tmp / "best", symlinks=True, copy_function=_link_or_copy)
 

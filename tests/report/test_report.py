@@ -455,6 +455,23 @@ def test_compare_page_renders(trained, second, tmp_path):
     assert_rendered(attrs, console, html, shot)
 
 
+@pytest.mark.slow
+def test_compare_page_keeps_every_model_visible_and_losses_apart(trained, second, tmp_path):
+    hinge = lintext.build_model(trained["train"], dev=trained["dev"], options={"loss": "hinge", "epochs": 3, "patience": 0})
+    models = [lintext.open_model(trained["dir"]), lintext.open_model(second), hinge,
+              lintext.build_model(trained["train"], dev=trained["dev"], options={"optimizer": "adam", "epochs": 3}),
+              lintext.build_model(trained["train"], dev=trained["dev"], options={"optimizer": "lbfgs", "epochs": 5})]
+    names = ["adagrad model", "plain sgd", "hinge model", "adam model", "lbfgs model"]
+    page = write_comparison(models, tmp_path / "five.html", names=names)
+    html = page.read_text(encoding="utf-8")
+    # softmax and hinge losses never share an axis: one panel each
+    assert "Softmax loss (solid: train, dashed: dev)" in html and "Hinge loss (solid: train, dashed: dev)" in html
+    assert "Not in this figure, for want of update statistics: lbfgs model" in html
+    attrs, console = open_in_browser(page, ARTIFACTS / "compare-five.png", tmp_path)
+    assert_rendered(attrs, console, html, ARTIFACTS / "compare-five.png")
+    assert attrs.get("data-tables-clipped") == "0"  # at 1280 px no table hides a model behind a scroll bar
+
+
 # ---------------------------------------------------------------- command line
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import re
 import mmap
 
 import numpy as np
@@ -167,6 +168,13 @@ def test_cli_sweep_writes_table_page_and_best_model(small_split, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == [".lintext.json", "best", "sweep.csv", "sweep.html", "sweep.json"]
     assert len(rows_of(out / "sweep.csv")) == 4
     assert (out / "best" / "model.json").is_file() and (out / "best" / "weights.npz").is_file()
+    assert (out / "best" / "report.html").is_file() and (out / "best" / "features.csv").is_file()
+    # ranked as the heading says: the dev-loss column falls down the table (lowest first), headers spelled out
+    lines = result.output.splitlines()
+    head = next(i for i, line in enumerate(lines) if "learning rate" in line and "dev loss" in line)
+    assert "ranked by dev loss (best first)" in result.output and "dev_loss" not in result.output
+    losses = [float(m.group(2)) for line in lines[head + 1:] for m in [re.search(r"(finished|stopped early)\s+([\d.]+)", line)] if m]
+    assert losses == sorted(losses) and len(losses) == 4
     assert not any(p.name.startswith(".") for p in tmp_path.iterdir())  # no temporary folder left behind
     # The best run is an ordinary model directory: the other commands take it as it is.
     assert run("evaluate", out / "best", small_split["test"]).exit_code == 0
