@@ -39,7 +39,7 @@ FOLDER_KINDS = ("model", "sweep", "probe", "store", "output")
 FILE_KINDS = ("predictions", "page")
 NAME_MAX = 255  # bytes; the file-system's own limit is asked for where it can be
 
-_MODEL_FILES = frozenset({"model.json", "weights.npz", "vocabulary.tsv", "feature_stats.npz", "confusion.npz",
+_MODEL_FILES = frozenset({"model.json", "weights.npz", "vocabulary.tsv", "feature_stats.npz", "confusion.npz", "confusion.csv",
                           "features.csv", "report.html"})
 # Files a kind of folder held before markers existed (lintext 0.1.0). Also accepted beside a
 # marker: ``lintext report`` adds features.csv and report.html to a model folder later.

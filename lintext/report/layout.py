@@ -5,7 +5,7 @@ SVG, and a few lines of inline script that only measure the figures after layout
 (``data-figures`` / ``data-figures-ok`` / ``data-figure-sizes`` / ``data-page-errors``,
 ``data-tables-clipped`` (tables wider than their box) and ``data-sections``, each section's
 ``id:top:height``, on ``<body>``, read by the tests that open the page in a headless browser
-and by ``scripts/report_picture.py``). Nothing is
+and by ``scripts/report_picture.py`` and ``scripts/shoot_report.py``). Nothing is
 fetched from anywhere.
 """
 

@@ -105,7 +105,8 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
 def _summary(model, info, training, history, data, metrics, table_) -> str:
     feat = model.featurizer
     cfg = feat.config
-    data_pairs = [("labels", f"{len(model.labels)}: " + escape(", ".join(model.labels))),
+    shown = model.labels if len(model.labels) <= 12 else model.labels[:12] + [f"… and {len(model.labels) - 12} more"]
+    data_pairs = [("labels", f"{len(model.labels)}: " + escape(", ".join(shown))),
                   ("train", escape(str(data.get("train", "–")))), ("train documents", fmt(data.get("train_documents")))]
     if data.get("dev"):
         data_pairs += [("dev", escape(str(data["dev"]))), ("dev documents", fmt(data.get("dev_documents")))]

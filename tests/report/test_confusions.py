@@ -105,3 +105,34 @@ def test_terminal_shows_pairs_beyond_twelve_labels(tmp_path, monkeypatch):
     assert table.row_count == 20
     off = counts - np.diag(np.diag(counts))
     assert str(off.max()) in list(table.columns[2].cells)[0]
+
+
+# ---------------------------------------------------------------- the page in a browser, at 58 labels
+
+
+@pytest.mark.slow
+def test_chromium_renders_a_58_label_report_legibly(tmp_path):
+    import lintext
+    from lintext.report.writer import write_report
+
+    from ..conftest import many_label_rows, write_csv
+    from .test_report import ARTIFACTS, assert_offline, assert_rendered, open_in_browser
+
+    rows = many_label_rows(58)
+    cut = int(len(rows) * 0.7)
+    model = lintext.build_model(write_csv(tmp_path / "train.csv", rows[:cut]), test=write_csv(tmp_path / "test.csv", rows[cut:]),
+                                options={"epochs": 8})
+    folder = model.save(tmp_path / "model", extra=lambda f: write_report(model, f))
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert_offline(html)
+    assert "most confused pairs" in html and (folder / "confusion.csv").is_file()
+    shot = ARTIFACTS / "report-58-labels.png"
+    attrs, console = open_in_browser(folder / "report.html", shot, tmp_path)
+    assert_rendered(attrs, console, html, shot)
+    # the heat view's tick labels as drawn at 1280 px: 7.5 pt in the figure, scaled by rendered / natural width
+    heat = html.index('aria-label="Confusions on the test set"')
+    natural_pt = float(re.search(r'viewBox="0 0 ([\d.]+) ', html[heat:]).group(1))
+    figures_before = html[:heat].count("<svg aria-label=")
+    rendered_px = int(attrs["data-figure-sizes"].split()[figures_before].split("x")[0])
+    tick_px = 7.5 * 4 / 3 * rendered_px / (natural_pt * 4 / 3)
+    assert tick_px >= 8.5, tick_px  # common practice: about 9 px is the smallest text read without zooming
