@@ -36,9 +36,11 @@ def label_scores(counts: np.ndarray) -> dict:
     ``precision`` and ``recall`` (NaN where undefined), ``f1`` (NaN only for labels absent from
     both truth and predictions) and the boolean mask ``present``."""
     counts = np.asarray(counts, dtype=np.int64)
-    tp = np.diag(counts).astype(np.float64)
-    support = counts.sum(axis=1)
-    predicted = counts.sum(axis=0)
+    return _scores(np.diag(counts), counts.sum(axis=1), counts.sum(axis=0))
+
+
+def _scores(tp, support, predicted) -> dict:
+    tp = np.asarray(tp, dtype=np.float64)
     present = (support > 0) | (predicted > 0)
     with np.errstate(divide="ignore", invalid="ignore"):
         precision = np.where(predicted > 0, tp / predicted, np.nan)
@@ -64,8 +66,14 @@ def summary_scores(counts: np.ndarray) -> dict:
 
 
 def macro_f1(y_true, y_pred, n_labels: int) -> float:
-    """Macro-F1 over the labels present in ``y_true`` or ``y_pred``."""
-    return summary_scores(confusion_counts(y_true, y_pred, n_labels))["macro_f1"]
+    """Macro-F1 over the labels present in ``y_true`` or ``y_pred`` (per-label counts only: no
+    n x n matrix, so it stays cheap at any number of labels)."""
+    y_true = np.asarray(y_true, dtype=np.int64)
+    y_pred = np.asarray(y_pred, dtype=np.int64)
+    tp = np.bincount(y_true[y_true == y_pred], minlength=n_labels)
+    scores = _scores(tp, np.bincount(y_true, minlength=n_labels), np.bincount(y_pred, minlength=n_labels))
+    f1 = scores["f1"][scores["present"]]
+    return float(f1.mean()) if f1.size else float("nan")
 
 
 def confused_pairs(counts, names, top: int | None = None) -> list[dict]:
