@@ -231,11 +231,11 @@ def _matrix(field: str, value, size: int) -> None:
 
 
 def _flat_numbers(field: str, value) -> None:
-    """An object whose values are numbers (finite), null, or strings."""
+    """An object whose values are numbers (finite), null, true/false, or strings."""
     if not isinstance(value, dict):
         raise FieldError(field, f"must be an object, not {_kind(value)}")
     for key, item in value.items():
-        if item is None or isinstance(item, str):
+        if item is None or isinstance(item, (str, bool)):
             continue
         if not _is_number(item):
             raise FieldError(f"{field}.{key}", f"must be a number, not {_shown(item)}")
