@@ -56,16 +56,18 @@ class DivergenceError(LinTextError):
     """Training produced a non-finite or exploding loss."""
 
     def __init__(self, learning_rate: float, epoch: int, loss: float, optimizer: str = "",
-                 suggestion: float | None = None, basis: str = ""):
+                 suggestion: float | None = None, basis: str = "", reason: str = ""):
         self.learning_rate = learning_rate
         self.epoch = epoch
         self.loss = loss
         self.suggestion = suggestion
+        self.reason = reason
         name = f"{optimizer} " if optimizer else ""
+        why = reason or f"loss {loss:.4g}"
         advice = (f"try {suggestion:g}" + (f" ({basis})" if basis else "")) if suggestion is not None else \
             "try a smaller one (lintext probe suggests one)"
         super().__init__(
-            f"training diverged at epoch {epoch} (loss {loss:.4g}) with {name}learning rate {learning_rate:g}; {advice}"
+            f"training diverged at epoch {epoch} ({why}) with {name}learning rate {learning_rate:g}; {advice}"
         )
 
 

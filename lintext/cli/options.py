@@ -177,9 +177,18 @@ _TRAINING_HELP = {
     "epsilon": "The adaptive rules' guard against division by zero (default: the rule's own).",
     "rho": "AdaDelta's and RMSProp's decay of their averages (default: 0.95 and 0.9).",
     "threads": "Threads for large batches (default: all cores); results do not depend on it.",
+    "average": "Average the weights over every step from this epoch on and use the average for dev scores, "
+               "early stopping and the saved model (0 = off).",
+    "initial_sum_sq": "Where AdaGrad's sum of squared gradients starts, so that a rare feature's first step "
+                      f"scales with its gradient (default {OPTIMIZERS['adagrad'].hyperparameters['initial_sum_sq']:g}).",
+    "l1": "L1 penalty: sgd's cumulative penalty (with --l2, an elastic net), ftrl's lambda_1 (0 = none).",
+    "beta": "FTRL's beta in its per-feature step alpha / (beta + sqrt(sum of squared gradients)) (default 1).",
+    "label_weights": "balanced (label k weighs n / (labels x n_k)) or label=weight pairs, e.g. billing=2,other=0.5; "
+                     "the losses shown are then weighted.",
 }
 _TYPES = {"learning_rate": Optional[float], "beta1": Optional[float], "beta2": Optional[float],
-          "epsilon": Optional[float], "rho": Optional[float], "threads": Optional[int]}
+          "epsilon": Optional[float], "rho": Optional[float], "threads": Optional[int],
+          "initial_sum_sq": Optional[float], "beta": Optional[float], "label_weights": Optional[str]}
 
 
 def training_options(exclude: tuple = ()):

@@ -72,7 +72,7 @@ from numba.core import cgutils
 from numba.extending import intrinsic
 
 from .losses import HINGE
-from .optimizers import ADADELTA, ADAGRAD, ADAM, RMSPROP, SGD
+from .optimizers import ADADELTA, ADAGRAD, ADAM, FTRL, RMSPROP, SGD
 from .schedules import SCHEDULE_INVERSE, SCHEDULE_INVERSE_SQRT
 
 # Columns of the per-row bookkeeping array (see the module docstring).
@@ -143,10 +143,12 @@ def schedule_lr(schedule_code, lr0, decay, step):
 
 @njit(**NO_REFCOUNT)
 def score_examples(indptr, indices, data, y, order, first, start, stop, params, loss_code,
-                   inv_batch, scores, dscores, example_loss):
+                   inv_batch, scores, dscores, example_loss, example_weight):
     """Score examples ``order[start:stop]``: row ``r = p - first`` of ``scores`` gets
     ``b + x_i @ W`` (the bias first, then the features in CSR order), ``dscores[r]`` the
-    loss gradient ``d loss / d scores`` divided by the batch size, ``example_loss[r]`` the loss.
+    loss gradient ``d loss / d scores`` divided by the batch size, ``example_loss[r]`` the loss;
+    with ``example_weight`` (one weight per row of the matrix; empty: none) both are multiplied
+    by the example's weight.
 
     Compiled twin of :func:`lintext.engine.losses.example_losses_grads`. A non-finite score gives a
     non-finite loss (never hidden). Written out in full, without calls to helpers taking
@@ -196,24 +198,30 @@ def score_examples(indptr, indices, data, y, order, first, start, stop, params, 
             for l in range(n_labels):
                 dscores[r, l] *= inv_batch
             loss = m + np.log(z) - scores[r, label]
+        if example_weight.shape[0] > 0:
+            weight = example_weight[i]
+            for l in range(n_labels):
+                dscores[r, l] *= weight
+            loss = loss * weight
         example_loss[r] = loss
 
 
 @njit(**PARALLEL)
 def score_examples_parallel(indptr, indices, data, y, order, start, stop, params, loss_code,
-                            inv_batch, scores, dscores, example_loss, n_chunks):
+                            inv_batch, scores, dscores, example_loss, example_weight, n_chunks):
     """:func:`score_examples` over ``n_chunks`` contiguous chunks of the batch in parallel."""
     n = stop - start
     for c in prange(n_chunks):
         score_examples(indptr, indices, data, y, order, start, start + (n * c) // n_chunks,
                        start + (n * (c + 1)) // n_chunks, params, loss_code, inv_batch, scores,
-                       dscores, example_loss)
+                       dscores, example_loss, example_weight)
 
 
 @njit(**NO_REFCOUNT)
 def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_value, dscores, opt_code,
                lr, l2, params, sum_sq_grad, first_moment, second_moment, avg_sq_update, info,
-               info_f, beta1, beta2, rho, epsilon, mark, g, moved, upcoming, n_up, active, n_active):
+               info_f, beta1, beta2, rho, epsilon, mark, g, moved, upcoming, n_up, active, n_active,
+               l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now):
     """Rows ``touched[lo:hi]``: sum the batch gradient from the row's entries, in example order
     (none: zero), then take one step of the rule; ``mark >= 0``: then set ``last_step`` to it.
 
@@ -226,6 +234,17 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     square root per coordinate). The statistics count the row when its gradient is not all
     zero and add ``|w_after - w_before|`` summed over labels (``g`` and ``moved`` are scratch
     space of ``n_labels``; a running sum in the loop would keep it from vectorising).
+
+    Remedies (each off at its neutral value, leaving the loops above untouched):
+
+    * ``l1 > 0`` (SGD): after the step, Tsuruoka, Tsujii & Ananiadou's (2009) cumulative L1
+      penalty: ``l1_total`` is ``u``, the penalty every weight could have received so far, and
+      ``l1_applied[j, l]`` is ``q``, what it did receive; the weight moves toward zero by
+      ``u - |q|`` at most and never crosses it.
+    * ``opt_code == FTRL``: McMahan et al. (2013), Algorithm 1: ``sum_sq_grad`` is ``n``,
+      ``shifted_grad_sum`` is ``z``; ``lr`` is ``alpha``, ``ftrl_beta`` is ``beta``, ``l1`` and
+      ``l2`` are ``lambda_1`` and ``lambda_2`` (0 on the bias).
+    * ``avg_now``: the row's weights after the step are added to ``avg_sum`` (iterate averaging).
 
     Meanwhile it prefetches the weights and state of the rows ``upcoming[:n_up]`` (the next
     batch's), spread evenly over its rows: all at once, the prefetches would queue for the
@@ -272,9 +291,10 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 prefetch(avg_sq_update, jn, end)
         j = touched[s]
         reg = 0.0 if j == bias else l2
+        pen = 0.0 if j == bias else l1
         a = row_start[s]
         b = row_start[s + 1]
-        if n_active < n_labels and reg == 0.0:  # SGD or AdaGrad on the active labels only
+        if n_active < n_labels and reg == 0.0 and pen == 0.0:  # SGD or AdaGrad on the active labels only
             nonzero = 0
             for k in range(n_active):
                 c = active[k]
@@ -302,6 +322,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 if n_active % 2 == 1:
                     s0 += moved[n_active - 1]
                 info_f[j, STAT_SUM] += s0 + s1
+            if avg_now:
+                for l in range(n_labels):
+                    avg_sum[j, l] += params[j, l]
             if mark >= 0:
                 info[j, LAST] = mark
             continue
@@ -319,7 +342,39 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             for l in range(n_labels):
                 g[l] = 0.0
         nonzero = 0
-        if opt_code == SGD:
+        if opt_code == FTRL:
+            lam2 = reg
+            for l in range(n_labels):
+                w = params[j, l] * 1.0
+                n_old = sum_sq_grad[j, l] * 1.0
+                n_new = n_old + g[l] * g[l]
+                sigma = (np.sqrt(n_new) - np.sqrt(n_old)) / lr
+                z = shifted_grad_sum[j, l] + g[l] - sigma * w
+                shifted_grad_sum[j, l] = z
+                sum_sq_grad[j, l] = n_new
+                if abs(z) <= pen:
+                    params[j, l] = 0.0
+                else:
+                    params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
+                nonzero += g[l] != 0.0
+                moved[l] = abs(params[j, l] - w)
+        elif pen > 0.0:  # SGD with the cumulative L1 penalty (and L2 when reg > 0)
+            shrink = 1.0 + lr * reg
+            for l in range(n_labels):
+                w = params[j, l] * 1.0
+                v = (w - lr * g[l]) / shrink
+                q = l1_applied[j, l] * 1.0
+                if v > 0.0:
+                    nv = max(0.0, v - (l1_total + q))
+                elif v < 0.0:
+                    nv = min(0.0, v + (l1_total - q))
+                else:
+                    nv = v
+                l1_applied[j, l] = q + (nv - v)
+                params[j, l] = nv
+                nonzero += g[l] != 0.0
+                moved[l] = abs(params[j, l] - w)
+        elif opt_code == SGD:
             if reg > 0.0:
                 shrink = 1.0 + lr * reg
                 for l in range(n_labels):
@@ -419,6 +474,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 s0 += moved[l]
                 l += 1
             info_f[j, STAT_SUM] += (s0 + s1) + (s2 + s3)
+        if avg_now:
+            for l in range(n_labels):
+                avg_sum[j, l] += params[j, l]
         if mark >= 0:
             info[j, LAST] = mark
 
@@ -446,7 +504,8 @@ def active_labels(loss_code, opt_code, dscores, n_ex, active):
 def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_example, entry_value, dscores,
                         opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                         avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark, active,
-                        n_active, n_chunks):
+                        n_active, l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now,
+                        n_chunks):
     """:func:`apply_rows` over ``n_chunks`` contiguous chunks of the rows in parallel."""
     n_labels = params.shape[1]
     for c in prange(n_chunks):
@@ -456,12 +515,48 @@ def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_exampl
         apply_rows((n_rows * c) // n_chunks, (n_rows * (c + 1)) // n_chunks, touched, decay1, decay2,
                    row_start, entry_example, entry_value, dscores, opt_code, lr, l2, params,
                    sum_sq_grad, first_moment, second_moment, avg_sq_update, info, info_f, beta1,
-                   beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active)
+                   beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active, l1, l1_total,
+                   l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now)
+
+
+@njit(inline="always", **NO_REFCOUNT)
+def average_missed(j, last, t, t0, kind, opt_code, cum, shrink_sums, lr, l2, epsilon, params, sum_sq_grad,
+                   avg_sum, avg_from):
+    """Add to ``avg_sum[j]`` the weights row ``j`` had after each of its missed steps
+    ``max(last, avg_from) .. t-1`` (iterate averaging under lazy updates), before its catch-up.
+
+    Without L2 a missed step leaves the weights alone, so that is ``(t - m) * w``. With L2
+    (``kind == CATCH_UP_WEIGHTS``) the weights after missed step ``s`` are ``w`` shrunk by the
+    steps ``last .. s``: for SGD ``w * exp(cum[last] - cum[s + 1])``, summed through
+    ``shrink_sums[b] = sum_{i=1..b} exp(-cum[i])`` (indices from the epoch's first step ``t0``);
+    for AdaGrad ``w / r^(s + 1 - last)`` with ``r = 1 + eta*l2``, a geometric sum.
+    """
+    m = last if last > avg_from else avg_from
+    if t <= m:
+        return
+    n_labels = params.shape[1]
+    if kind == CATCH_UP_WEIGHTS:
+        if opt_code == SGD:
+            f = np.exp(cum[last - t0]) * (shrink_sums[t - t0] - shrink_sums[m - t0])
+            for l in range(n_labels):
+                avg_sum[j, l] += f * params[j, l]
+        else:
+            for l in range(n_labels):
+                eta = lr / (np.sqrt(sum_sq_grad[j, l]) + epsilon)
+                rate = np.log1p(eta * l2)  # r = exp(rate)
+                # sum_{s=m}^{t-1} r^-(s+1-last) = r^-(m+1-last) * (1 - r^-(t-m)) / (1 - r^-1)
+                f = np.exp(-(m + 1 - last) * rate) * np.expm1(-(t - m) * rate) / np.expm1(-rate)
+                avg_sum[j, l] += f * params[j, l]
+    else:
+        c = float(t - m)
+        for l in range(n_labels):
+            avg_sum[j, l] += c * params[j, l]
 
 
 @njit(**NO_REFCOUNT)
 def flush_rows(lo, hi, now, t0, cum, opt_code, lr, l2, params, sum_sq_grad, first_moment,
-               second_moment, avg_sq_update, info, beta1, beta2, rho, epsilon):
+               second_moment, avg_sq_update, info, beta1, beta2, rho, epsilon, kind, shrink_sums,
+               avg_sum, avg_from):
     """Catch rows ``lo .. hi-1`` up over their missed steps, up to step ``now``.
 
     Compiled twin of :func:`lintext.engine.optimizers.catch_up` over ``k = now - last_step`` missed steps:
@@ -469,13 +564,20 @@ def flush_rows(lo, hi, now, t0, cum, opt_code, lr, l2, params, sum_sq_grad, firs
     ``log(1 + eta_s*l2)`` from the epoch's first step ``t0``); AdaGrad divides by
     ``(1 + eta*l2)^k`` (its accumulator is unchanged while absent; ``lr`` is constant within an
     epoch); the decaying rules scale their state by ``rho^k`` / ``beta^k`` and leave ``w`` alone.
+    With averaging (``avg_sum`` has rows) the missed steps' weights are first added to it
+    (:func:`average_missed`).
     """
     n_labels = params.shape[1]
+    averaging = avg_sum.shape[0] > 0
     for j in range(lo, hi):
-        k = now - info[j, LAST]
+        last = info[j, LAST]
+        k = now - last
         info[j, LAST] = now
         if k <= 0:
             continue
+        if averaging:
+            average_missed(j, last, now, t0, kind, opt_code, cum, shrink_sums, lr, l2, epsilon, params,
+                           sum_sq_grad, avg_sum, avg_from)
         if opt_code == SGD:
             if l2 > 0.0:
                 factor = np.exp(cum[now - k - t0] - cum[now - t0])
@@ -509,12 +611,13 @@ def flush_rows(lo, hi, now, t0, cum, opt_code, lr, l2, params, sum_sq_grad, firs
 
 @njit(**PARALLEL)
 def flush_rows_parallel(n_rows, now, t0, cum, opt_code, lr, l2, params, sum_sq_grad, first_moment,
-                        second_moment, avg_sq_update, info, beta1, beta2, rho, epsilon, n_chunks):
+                        second_moment, avg_sq_update, info, beta1, beta2, rho, epsilon, kind, shrink_sums,
+                        avg_sum, avg_from, n_chunks):
     """:func:`flush_rows` over ``n_chunks`` contiguous chunks of rows in parallel."""
     for c in prange(n_chunks):
         flush_rows((n_rows * c) // n_chunks, (n_rows * (c + 1)) // n_chunks, now, t0, cum, opt_code,
                    lr, l2, params, sum_sq_grad, first_moment, second_moment, avg_sq_update, info,
-                   beta1, beta2, rho, epsilon)
+                   beta1, beta2, rho, epsilon, kind, shrink_sums, avg_sum, avg_from)
 
 
 # --------------------------------------------------------------------------- per batch, per epoch
@@ -523,7 +626,8 @@ def flush_rows_parallel(n_rows, now, t0, cum, opt_code, lr, l2, params, sum_sq_g
 @njit(**NO_REFCOUNT)
 def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, powers, opt_code, lr,
                   l2, beta1, beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed,
-                  decays, row_start, entry_row, entry_example, entry_value, upcoming, ahead):
+                  decays, row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums,
+                  avg_sum, avg_from):
     """Steps 1 and 2 of the batch ``order[start:stop]`` (step ``t``).
 
     1. Its distinct rows (``touched``; the bias last), each caught up to step ``t`` where L2
@@ -535,6 +639,8 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
 
     Meanwhile the records of the next batch's rows (examples ``stop .. ahead - 1``) are
     prefetched and their rows listed in ``upcoming``. Returns ``(n_touched, n_upcoming)``.
+    With averaging (``avg_sum`` has rows) a row's missed steps are added to its average before
+    its catch-up (:func:`average_missed`).
     """
     n_labels = params.shape[1]
     n_rows = params.shape[0]
@@ -543,6 +649,7 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
     n_powers = powers.shape[1]
     base1 = beta1 if opt_code == ADAM else rho
     base2 = beta2 if opt_code == ADAM else rho
+    averaging = avg_sum.shape[0] > 0
     n_up = 0
     for p in range(stop, ahead):
         i = order[p]
@@ -566,6 +673,9 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
                     decays[0, s] = 1.0
                     decays[1, s] = 1.0
                     if k > 0:
+                        if averaging:
+                            average_missed(j, last, t, t0, kind, opt_code, cum, shrink_sums, lr, l2, epsilon,
+                                           params, sum_sq_grad, avg_sum, avg_from)
                         if kind == CATCH_UP_STATE:
                             missed[s] = k
                             if k < n_powers:
@@ -642,9 +752,12 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                  second_moment, avg_sq_update, info, info_f, loss_code, opt_code, schedule_code,
                  lr0, decay, l2, beta1, beta2, rho, epsilon, batch_size, lazy, step, kind, cum,
                  powers, scores, dscores, example_loss, touched, missed, decays, row_start,
-                 entry_row, entry_example, entry_value, upcoming, active, scratch):
+                 entry_row, entry_example, entry_value, upcoming, active, scratch, example_weight,
+                 l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from):
     """Run the batches of one epoch on this thread; see :mod:`lintext.engine.kernels`, which also
     allocates the work space and ends the epoch (flush). Returns ``(loss_sum, new_step, finite)``.
+    ``l1_total[b]`` is the cumulative L1 penalty after the epoch's step ``b`` (empty: no L1);
+    steps from ``avg_from`` on add their weights to ``avg_sum`` (no rows: no averaging).
 
     Precondition: every ``last_step`` is at most ``step``, and a row with ``last_step < step``
     owes only the decay of a decaying rule (caught up on its next touch).
@@ -652,6 +765,8 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
     n = order.shape[0]
     n_batches = (n + batch_size - 1) // batch_size
     prefetching = upcoming.shape[0] > 0
+    averaging = avg_sum.shape[0] > 0
+    penalised = l1_total.shape[0] > 0
     loss_sum = 0.0
     for b in range(n_batches):
         t = step + b
@@ -663,9 +778,9 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
         n_touched, n_up = prepare_batch(
             indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2,
             beta1, beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays,
-            row_start, entry_row, entry_example, entry_value, upcoming, ahead)
+            row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums, avg_sum, avg_from)
         score_examples(indptr, indices, data, y, order, start, start, stop, params, loss_code,
-                       1.0 / n_ex, scores, dscores, example_loss)
+                       1.0 / n_ex, scores, dscores, example_loss, example_weight)
         total = 0.0  # the batch's losses in example order (as run_batch_threads sums them)
         for r in range(n_ex):
             total += example_loss[r]
@@ -676,10 +791,14 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                 return loss_sum + total, t + 1, False
         loss_sum += total
         n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
+        u = l1_total[b] if penalised else 0.0
+        avg_now = averaging and t >= avg_from
+        mark = t + 1 if lazy else -1
         apply_rows(0, n_touched, touched, decays[0], decays[1], row_start, entry_example, entry_value,
                    dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
-                   avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, t + 1 if lazy else -1,
-                   scratch[0], scratch[1], upcoming, n_up, active, n_active)
+                   avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark,
+                   scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, u, l1_applied,
+                   shifted_grad_sum, ftrl_beta, avg_sum, avg_now)
     return loss_sum, step + n_batches, True
 
 
@@ -688,7 +807,9 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
                       second_moment, avg_sq_update, info, info_f, loss_code, opt_code, schedule_code,
                       lr0, decay, l2, beta1, beta2, rho, epsilon, batch_size, lazy, step, kind, cum,
                       powers, scores, dscores, example_loss, touched, missed, decays, row_start,
-                      entry_row, entry_example, entry_value, upcoming, active, n_threads):
+                      entry_row, entry_example, entry_value, upcoming, active, example_weight, l1,
+                      l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from,
+                      n_threads):
     """Batch ``b`` of :func:`epoch_kernel`, with its scoring split over its examples and its
     update over its rows on ``n_threads`` threads (the same results, bit for bit). Returns
     ``(loss_sum, finite)``."""
@@ -701,9 +822,9 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
     n_touched, _ = prepare_batch(
         indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2, beta1,
         beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays, row_start,
-        entry_row, entry_example, entry_value, upcoming, stop)
+        entry_row, entry_example, entry_value, upcoming, stop, shrink_sums, avg_sum, avg_from)
     score_examples_parallel(indptr, indices, data, y, order, start, stop, params, loss_code,
-                            1.0 / n_ex, scores, dscores, example_loss, min(n_ex, 4 * n_threads))
+                            1.0 / n_ex, scores, dscores, example_loss, example_weight, min(n_ex, 4 * n_threads))
     total = 0.0
     for r in range(n_ex):
         total += example_loss[r]
@@ -713,10 +834,14 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
                     info[touched[s], LAST] = t - missed[s]
             return total, False
     n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
+    u = l1_total[b] if l1_total.shape[0] > 0 else 0.0
+    avg_now = avg_sum.shape[0] > 0 and t >= avg_from
+    mark = t + 1 if lazy else -1
     apply_rows_parallel(n_touched, touched, decays[0], decays[1], row_start, entry_example,
                         entry_value, dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment,
                         second_moment, avg_sq_update, info, info_f, beta1, beta2, rho, epsilon,
-                        t + 1 if lazy else -1, active, n_active, min(n_touched, 8 * n_threads))
+                        mark, active, n_active, l1, u, l1_applied, shifted_grad_sum, ftrl_beta,
+                        avg_sum, avg_now, min(n_touched, 8 * n_threads))
     return total, True
 
 

@@ -66,6 +66,9 @@ trainer changes between epochs only).
 
 The bias row is touched every step with the same rule and its own state, never regularised.
 
+Remedies (example weights, FTRL, SGD's cumulative L1 penalty, iterate averaging): their lazy
+semantics are in :mod:`lintext.engine.state`; off, the kernels take exactly the paths above.
+
 Weights and state may be float64 or float32 (numba compiles one version per dtype);
 arithmetic is float64. How the kernel is made fast is told in :mod:`lintext.engine.compiled`.
 
@@ -96,7 +99,7 @@ from .compiled import (
     CATCH_UP_NONE, CATCH_UP_STATE, CATCH_UP_WEIGHTS, LAST, NEGLIGIBLE, PREFETCH_MAX_EXAMPLES, all_finite, epoch_kernel,
     flush_rows, flush_rows_parallel, run_batch_threads, schedule_lr, score_rows, score_rows_parallel)
 from .numba_setup import Threads, max_threads, resolve_threads
-from .optimizers import ADAGRAD, ADAM, SGD
+from .optimizers import ADAGRAD, ADAM, FTRL, SGD
 from .schedules import SCHEDULE_INVERSE, SCHEDULE_INVERSE_SQRT, schedule_learning_rate
 from .state import KernelState
 
@@ -165,6 +168,8 @@ class WorkSpace(NamedTuple):
     upcoming: np.ndarray
     active: np.ndarray
     scratch: np.ndarray
+    shrink_sums: np.ndarray
+    l1_total: np.ndarray
 
 
 def flush(params, state: KernelState, *, optimizer_code: int, beta1: float, beta2: float, rho: float,
@@ -180,15 +185,16 @@ def flush(params, state: KernelState, *, optimizer_code: int, beta1: float, beta
     step = int(state.step)
     settings = Settings(0, int(optimizer_code), 0, 0.0, 0.0, 0.0, float(beta1), float(beta2), float(rho), 0.0,
                         1, True, step, CATCH_UP_STATE)
-    _flush_rows(params, state, settings, np.zeros(1), step, resolve_threads(threads),
-                PARALLEL_MIN_WORK_OUTSIDE_BATCHES)
+    _flush_rows(params, state, settings, np.zeros(1), np.zeros(1), step, resolve_threads(threads),
+                PARALLEL_MIN_WORK_OUTSIDE_BATCHES, averaging=False)
     state.pending = False
 
 
 def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, loss_code: int,
               optimizer_code: int, schedule_code: int, learning_rate: float, beta1: float, beta2: float,
               rho: float, epsilon: float, decay: float = 0.0, l2: float = 0.0, batch_size: int = 1,
-              lazy: bool = True, flush: bool = True, threads: int | None = 1) -> tuple[float, bool]:
+              lazy: bool = True, flush: bool = True, threads: int | None = 1, ftrl_beta: float = 1.0,
+              l1: float = 0.0, example_weight=None, avg_from: int = 0) -> tuple[float, bool]:
     """Run one epoch of the compiled kernel, updating ``params`` and ``state`` in place.
 
     Parameters
@@ -218,6 +224,14 @@ def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, lo
     threads : int or None
         Threads for large batches (``None`` or 0: all of numba's threads). The results do
         not depend on it, bit for bit.
+    ftrl_beta : float
+        FTRL's ``beta`` (only read by FTRL).
+    l1 : float
+        L1 strength: SGD's cumulative penalty per unit step size, FTRL's ``lambda_1``.
+    example_weight : float64 ndarray or None
+        A weight per row of the matrix (``None``: every example weighs 1).
+    avg_from : int
+        With averaging (``state.avg_sum`` has rows), the first step whose weights count.
 
     Returns
     -------
@@ -230,40 +244,65 @@ def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, lo
         raise ValueError("params must be C-contiguous with the dtype of data")
     if optimizer_code != SGD and schedule_code in (SCHEDULE_INVERSE, SCHEDULE_INVERSE_SQRT):
         raise ValueError("the inverse schedules are for plain SGD only")
-    if state.pending and optimizer_code in (SGD, ADAGRAD):
+    if state.pending and optimizer_code in (SGD, ADAGRAD, FTRL):
         raise ValueError("kernel state was not flushed: only a decaying rule may continue it")
+    if l1 > 0.0 and optimizer_code not in (SGD, FTRL):
+        raise ValueError("an L1 penalty is for SGD and FTRL only")
+    if (optimizer_code == FTRL) != (state.shifted_grad_sum.shape[0] > 0):
+        raise ValueError("FTRL needs its state (KernelState.new with the FTRL code), and only FTRL has it")
+    if optimizer_code == SGD and l1 > 0.0 and state.l1_applied.shape[0] == 0:
+        raise ValueError("SGD with L1 needs KernelState.new(..., l1=True)")
+    averaging = state.avg_sum.shape[0] > 0
+    flush = flush or averaging  # every epoch ends current: the average is read after each
+    weights = np.zeros(0) if example_weight is None else np.ascontiguousarray(example_weight, dtype=np.float64)
     n_threads = resolve_threads(threads)
     rows = Rows(indptr, indices, data, y, order)
     settings = Settings(int(loss_code), int(optimizer_code), int(schedule_code), float(learning_rate),
                         float(decay), float(l2), float(beta1), float(beta2), float(rho), float(epsilon),
                         int(max(1, batch_size)), bool(lazy), int(state.step),
                         _catch_up_kind(optimizer_code, l2, bool(lazy)))
+    remedies = Remedies(weights, float(l1), float(ftrl_beta), int(avg_from))
     lengths = indptr[order + 1] - indptr[order]
     threaded = n_threads > 1 and _batch_work(lengths, settings.batch_size, params.shape[1]) >= PARALLEL_MIN_WORK
-    work = _work_space(lengths, params, settings, prefetch=not threaded)
+    work = _work_space(lengths, params, settings, prefetch=not threaded, remedies=remedies, state=state)
     with Threads(n_threads if threaded else 1):
         if threaded:
-            loss_sum, end, finite = _batches_threads(rows, params, state, settings, work, n_threads)
+            loss_sum, end, finite = _batches_threads(rows, params, state, settings, work, n_threads, remedies)
         else:
-            loss_sum, end, finite = _epoch_one_thread(rows, params, state, settings, work)
+            loss_sum, end, finite = _epoch_one_thread(rows, params, state, settings, work, remedies)
         if finite:
-            _end_epoch(params, state, settings, work.cum, end, flush, n_threads)
+            _end_epoch(params, state, settings, work, end, flush, n_threads, remedies)
+    if finite and work.l1_total.shape[0] > 0:
+        state.l1_total = float(work.l1_total[-1])
     state.step = int(end)
-    state.pending = settings.lazy and optimizer_code not in (SGD, ADAGRAD) and (not flush or not finite)
+    state.pending = settings.kind == CATCH_UP_STATE and (not flush or not finite)
     return float(loss_sum), bool(finite)
 
 
-def _epoch_one_thread(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace):
+class Remedies(NamedTuple):
+    """The remedies' inputs of one epoch (see the module docstring): example weights (empty:
+    none), the L1 strength, FTRL's beta and the first step of the average."""
+
+    example_weight: np.ndarray
+    l1: float
+    ftrl_beta: float
+    avg_from: int
+
+
+def _epoch_one_thread(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, r: Remedies):
     """The one call into :func:`compiled.epoch_kernel`, its arguments unpacked by name."""
     return epoch_kernel(
         rows.indptr, rows.indices, rows.data, rows.y, rows.order, params, state.sum_sq_grad, state.first_moment,
         state.second_moment, state.avg_sq_update, state.info, state.info_f, s.loss_code, s.optimizer_code,
         s.schedule_code, s.learning_rate, s.decay, s.l2, s.beta1, s.beta2, s.rho, s.epsilon, s.batch_size, s.lazy,
         s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched, w.missed, w.decays,
-        w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active, w.scratch)
+        w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active, w.scratch, r.example_weight,
+        r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta, w.shrink_sums, state.avg_sum,
+        r.avg_from)
 
 
-def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, n_threads: int):
+def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, n_threads: int,
+                     r: Remedies):
     """The batches of one epoch, each split over ``n_threads`` threads (batches large enough
     that a call from Python per batch costs nothing that matters): the same steps, the same
     bits, as :func:`compiled.epoch_kernel`."""
@@ -276,37 +315,44 @@ def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: Wor
             s.optimizer_code, s.schedule_code, s.learning_rate, s.decay, s.l2, s.beta1, s.beta2, s.rho, s.epsilon,
             s.batch_size, s.lazy, s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched,
             w.missed, w.decays, w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active,
-            n_threads)
+            r.example_weight, r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta,
+            w.shrink_sums, state.avg_sum, r.avg_from, n_threads)
         loss_sum += total
         if not finite:
             return loss_sum, s.step + b + 1, False
     return loss_sum, s.step + n_batches, True
 
 
-def _end_epoch(params, state: KernelState, s: Settings, cum, end, flush, n_threads):
+def _end_epoch(params, state: KernelState, s: Settings, w: WorkSpace, end, flush, n_threads, r: Remedies):
     """After the last step: the flush (every row caught up to ``end``) where it is due, else
-    ``last_step = end`` where nothing is owed; the bias is always current."""
+    ``last_step = end`` where nothing is owed; the bias is always current. With lazy averaging
+    every row is caught up (its missed steps added to the average)."""
     n_features = params.shape[0] - 1
-    if s.kind == CATCH_UP_WEIGHTS or (s.kind == CATCH_UP_STATE and flush):
-        _flush_rows(params, state, s, cum, end, n_threads, PARALLEL_MIN_WORK)
+    averaging = s.lazy and state.avg_sum.shape[0] > 0
+    if s.kind == CATCH_UP_WEIGHTS or (s.kind == CATCH_UP_STATE and flush) or averaging:
+        _flush_rows(params, state, s, w.cum, w.shrink_sums, end, n_threads, PARALLEL_MIN_WORK, averaging,
+                    r.avg_from)
     elif s.kind == CATCH_UP_NONE:
         state.info[:n_features, LAST] = end
     state.info[n_features, LAST] = end
 
 
-def _flush_rows(params, state: KernelState, s: Settings, cum, now, n_threads, threshold):
+def _flush_rows(params, state: KernelState, s: Settings, cum, shrink_sums, now, n_threads, threshold,
+                averaging=False, avg_from=0):
     """Every feature row caught up to step ``now`` (:func:`compiled.flush_rows`), on
     ``n_threads`` threads when the weights have at least ``threshold`` elements."""
     n_features = params.shape[0] - 1
+    avg_sum = state.avg_sum if averaging else np.zeros((0, params.shape[1]))
     if n_threads > 1 and params.size >= threshold:
         with Threads(n_threads):
             flush_rows_parallel(n_features, now, s.step, cum, s.optimizer_code, s.learning_rate, s.l2, params,
                                 state.sum_sq_grad, state.first_moment, state.second_moment, state.avg_sq_update,
-                                state.info, s.beta1, s.beta2, s.rho, s.epsilon, 4 * n_threads)
+                                state.info, s.beta1, s.beta2, s.rho, s.epsilon, s.kind, shrink_sums, avg_sum,
+                                avg_from, 4 * n_threads)
     else:
         flush_rows(0, n_features, now, s.step, cum, s.optimizer_code, s.learning_rate, s.l2, params,
                    state.sum_sq_grad, state.first_moment, state.second_moment, state.avg_sq_update, state.info,
-                   s.beta1, s.beta2, s.rho, s.epsilon)
+                   s.beta1, s.beta2, s.rho, s.epsilon, s.kind, shrink_sums, avg_sum, avg_from)
 
 
 def _catch_up_kind(optimizer_code, l2, lazy) -> int:
@@ -315,6 +361,8 @@ def _catch_up_kind(optimizer_code, l2, lazy) -> int:
         return CATCH_UP_NONE
     if optimizer_code in (SGD, ADAGRAD):
         return CATCH_UP_WEIGHTS if l2 > 0.0 else CATCH_UP_NONE
+    if optimizer_code == FTRL:
+        return CATCH_UP_NONE
     return CATCH_UP_STATE
 
 
@@ -325,7 +373,8 @@ def _batch_work(lengths, batch_size, n_labels) -> float:
     return float(lengths.mean()) * min(batch_size, len(lengths)) * n_labels
 
 
-def _work_space(lengths, params, s: Settings, prefetch=True) -> WorkSpace:
+def _work_space(lengths, params, s: Settings, prefetch=True, remedies: Remedies | None = None,
+                state: KernelState | None = None) -> WorkSpace:
     """Tables and buffers of one epoch.
 
     ``cum``: SGD with L2, the running sum of ``log(1 + eta_s*l2)`` over the epoch's steps, so
@@ -333,6 +382,11 @@ def _work_space(lengths, params, s: Settings, prefetch=True) -> WorkSpace:
     the decay rates' powers for gaps of up to two epochs (longer ones are computed when met),
     by repeated multiplication (relative error below ``k * 1.2e-16``), below ``NEGLIGIBLE``
     set to 0. The buffers are sized for the largest batch of this epoch.
+
+    ``shrink_sums`` (lazy averaging with SGD and L2): ``shrink_sums[b] = sum_{i=1..b} exp(-cum[i])``,
+    the sum over missed steps of the L2 shrinkage (:func:`compiled.average_missed`).
+    ``l1_total`` (SGD with L1): the cumulative penalty ``u`` after each step of the epoch,
+    ``state.l1_total + l1 * (eta_0 + ... + eta_b)``.
     """
     n = len(lengths)
     batch_size = s.batch_size
@@ -350,6 +404,17 @@ def _work_space(lengths, params, s: Settings, prefetch=True) -> WorkSpace:
             powers[row, 0] = 1.0
             powers[row, 1:] = np.cumprod(np.full(n_powers - 1, float(base)))
         powers[powers < NEGLIGIBLE] = 0.0
+    shrink_sums = np.zeros(0)
+    l1_total = np.zeros(0)
+    if remedies is not None and state is not None:
+        if s.lazy and s.optimizer_code == SGD and s.l2 > 0.0 and state.avg_sum.shape[0] > 0:
+            if cum[-1] > 700.0:
+                raise ValueError("--l2 shrinks the weights by more than e^-700 in one epoch: too strong to average")
+            shrink_sums = np.concatenate(([0.0], np.cumsum(np.exp(-cum[1:]))))
+        if s.optimizer_code == SGD and remedies.l1 > 0.0:
+            rates = np.array([schedule_learning_rate(s.schedule_code, s.learning_rate, s.decay, s.step + b)
+                              for b in range(n_batches)])
+            l1_total = state.l1_total + remedies.l1 * np.cumsum(rates)
     cap = int(np.add.reduceat(lengths, np.arange(0, n, batch_size)).max()) if n else 0
     width = min(batch_size, n)
     max_rows = (min(cap, n_rows - 1) if s.lazy else n_rows - 1) + 1  # rows of a step, the bias last
@@ -361,7 +426,7 @@ def _work_space(lengths, params, s: Settings, prefetch=True) -> WorkSpace:
         row_start=np.zeros(max_rows + 1, dtype=np.int64), entry_row=np.empty(cap + width, dtype=np.int64),
         entry_example=np.empty(cap + width, dtype=np.int64), entry_value=np.empty(cap + width),
         upcoming=np.empty(upcoming, dtype=np.int64), active=np.empty(n_labels, dtype=np.int64),
-        scratch=np.empty((2, n_labels)))
+        scratch=np.empty((2, n_labels)), shrink_sums=shrink_sums, l1_total=l1_total)
 
 
 def decision_scores(indptr, indices, data, params, threads: int | None = 1) -> np.ndarray:

@@ -46,24 +46,29 @@ class Monitor:
         return improved
 
 
-def history_row(epoch, train_loss, lr, params, loss, dev, y_dev, threads=1) -> dict:
+def history_row(epoch, train_loss, lr, params, loss, dev, y_dev, threads=1, dev_weights=None) -> dict:
     row = {"epoch": epoch, "train_loss": float(train_loss), "dev_loss": None, "dev_accuracy": None,
            "dev_macro_f1": None, "learning_rate": None if lr is None else float(lr)}
     if dev is not None:
         S = kernels.decision_scores(*dev, params, threads=threads)
-        row.update(dev_scores(S, y_dev, loss))
+        row.update(dev_scores(S, y_dev, loss, dev_weights))
     return row
 
 
-def dev_scores(S, y_dev, loss) -> dict:
-    """Dev loss (mean, no L2 term), accuracy and macro-F1 of scores ``S``.
+def dev_scores(S, y_dev, loss, weights=None) -> dict:
+    """Dev loss (mean, no L2 term; with ``weights`` the weighted mean), accuracy and macro-F1 of
+    scores ``S`` (not weighted).
 
     Macro-F1 averages over the labels present in the dev truth or predictions
     (:mod:`lintext.engine.metrics`), as ``lintext evaluate`` does.
     """
     pred = S.argmax(axis=1)
+    if weights is None:
+        dev_loss = losses.mean_loss(loss, S, y_dev)
+    else:
+        dev_loss = float(np.dot(weights, losses.example_losses_grads(loss, S, y_dev)[0]) / np.sum(weights))
     return {
-        "dev_loss": losses.mean_loss(loss, S, y_dev),
+        "dev_loss": dev_loss,
         "dev_accuracy": float(np.mean(pred == y_dev)),
         "dev_macro_f1": macro_f1(y_dev, pred, S.shape[1]),
     }

@@ -20,6 +20,8 @@ from .optimizers import OPTIMIZERS
 from .schedules import SCHEDULE_CODES, WITHIN_EPOCH
 
 STOP_METRICS = ("dev-loss", "accuracy", "macro-f1")
+# Every rule hyperparameter that is also an option (a rule's dataclass field of the same name).
+HYPERPARAMETERS = ("beta1", "beta2", "epsilon", "rho", "initial_sum_sq", "beta")
 UPDATES = ("lazy", "dense")
 PRECISIONS = ("float64", "float32")
 # Keys of model.json written before the options were spelled as typed, and their values.
@@ -47,6 +49,15 @@ class TrainOptions:
     RMSProp and AdaDelta do poorly with batch size 1 under lazy updates and prefer 32 or more.
     The defaults of the optimizer (plain SGD at 3.0), the epochs (50) and the patience (5) were
     chosen by measurement on the demo and fortunes corpora (see the README).
+
+    Remedies for rare features (each off by default unless measured to help; see the README):
+    ``average`` (an epoch, 0 = off) averages the weights over every step from the start of that
+    epoch on (Polyak & Juditsky 1992), and the averaged weights are what dev scores, early stopping
+    and the saved model use; ``initial_sum_sq`` is where AdaGrad's sum of squared gradients starts;
+    ``l1`` is an L1 penalty (SGD: the cumulative penalty of Tsuruoka, Tsujii & Ananiadou 2009,
+    with ``l2`` an elastic net; FTRL: its ``lambda_1``); ``beta`` is FTRL's; ``label_weights`` is
+    ``"balanced"`` (label ``k`` weighs ``n / (K * n_k)``, scikit-learn's definition) or
+    ``"label=weight,..."`` (labels not named weigh 1).
 
     ``updates="dense"`` updates every coordinate every step (the slow reference); with
     ``l2 > 0`` only SGD and AdaGrad minimise the stated objective under lazy updates (see
@@ -76,6 +87,11 @@ class TrainOptions:
     epsilon: float | None = None
     rho: float | None = None
     threads: int | None = None
+    average: int = 0
+    initial_sum_sq: float | None = None
+    l1: float = 0.0
+    beta: float | None = None
+    label_weights: str | None = None
 
     @property
     def lazy(self) -> bool:
@@ -111,7 +127,19 @@ class TrainOptions:
             _number("epsilon", self.epsilon, low=0.0, low_open=True)
         if self.threads is not None:
             _integer("threads", self.threads, low=0)
+        _integer("average", self.average, low=0)
+        _number("l1", self.l1, low=0.0)
+        if self.initial_sum_sq is not None:
+            _number("initial_sum_sq", self.initial_sum_sq, low=0.0)
+        if self.beta is not None:
+            _number("beta", self.beta, low=0.0)
+        if self.label_weights is not None:
+            parse_label_weights(self.label_weights)
         spec = self.spec
+        if self.l1 > 0 and self.optimizer not in ("sgd", "ftrl"):
+            raise ConfigError(flag("l1"), self.l1, f"only for --optimizer sgd or ftrl, not {self.optimizer}")
+        if self.average and self.optimizer == "lbfgs":
+            raise ConfigError(flag("average"), self.average, "lbfgs takes no steps to average")
         if self.schedule in WITHIN_EPOCH and self.optimizer != "sgd":
             raise ConfigError(flag("schedule"), self.schedule,
                               f"only for --optimizer sgd; {self.optimizer} adapts its own steps (use constant or plateau)")
@@ -120,7 +148,7 @@ class TrainOptions:
                 raise ConfigError(flag("learning_rate"), self.learning_rate, f"{self.optimizer} takes no learning rate")
             if self.schedule != "constant":
                 raise ConfigError(flag("schedule"), self.schedule, f"{self.optimizer} takes no schedule")
-        for name in ("beta1", "beta2", "epsilon", "rho"):
+        for name in HYPERPARAMETERS:
             if getattr(self, name) is not None and name not in spec.hyperparameters:
                 raise ConfigError(flag(name), getattr(self, name), f"not used by --optimizer {self.optimizer}")
         return self
@@ -136,7 +164,7 @@ class TrainOptions:
         """The optimizer's rule with these hyperparameters (``None`` for L-BFGS)."""
         if self.spec.rule is None:
             return None
-        given = {name: getattr(self, name) for name in ("beta1", "beta2", "epsilon", "rho")}
+        given = {name: getattr(self, name) for name in HYPERPARAMETERS}
         return self.spec.make_rule(**{k: v for k, v in given.items() if k in self.spec.hyperparameters})
 
     def to_json(self) -> dict:
@@ -160,6 +188,28 @@ class TrainOptions:
                 raise ConfigError(flag(unknown[0]), value[unknown[0]], "not a training option")
             return cls(**value)
         raise TypeError(f"expected TrainOptions or dict, got {type(value).__name__}")
+
+
+def parse_label_weights(value) -> str | dict:
+    """``--label-weights``: ``"balanced"``, or ``"label=weight,..."`` as a dict (weights positive
+    and finite); a ConfigError naming the option otherwise."""
+    text = str(value).strip()
+    if text == "balanced":
+        return "balanced"
+    out = {}
+    for part in text.split(","):
+        name, sep, number = part.rpartition("=")
+        try:
+            weight = float(number)
+        except ValueError:
+            weight = math.nan
+        if not sep or not name.strip() or not math.isfinite(weight) or weight <= 0:
+            raise ConfigError(flag("label_weights"), value,
+                              "expected balanced or label=weight pairs separated by commas, weights above 0")
+        if name.strip() in out:
+            raise ConfigError(flag("label_weights"), value, f"label {name.strip()!r} given twice")
+        out[name.strip()] = weight
+    return out
 
 
 def upgrade_training_json(training: dict) -> dict:

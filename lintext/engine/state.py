@@ -2,6 +2,34 @@
 
 Rows are the features plus the bias (last). The arrays a rule uses are those its registry
 entry names (:data:`lintext.engine.optimizers.OPTIMIZERS`); the others have zero rows.
+
+Remedies, their semantics under lazy updates (each off by default; off, the kernels take exactly
+the paths :mod:`lintext.engine.kernels` describes, bit for bit):
+
+* *Example weights* (``example_weight``, one per row of the matrix): each example's loss and
+  gradient are multiplied by its weight (label weights times document weights).
+* *FTRL-Proximal* (McMahan et al. 2013): a zero gradient leaves ``z`` and ``n`` unchanged and the
+  weight is a function of them, so lazy == dense exactly; L1 and L2 are the paper's
+  ``lambda_1`` and ``lambda_2``, never a catch-up.
+* *Cumulative L1 penalty* (SGD; Tsuruoka, Tsujii & Ananiadou 2009): as the paper's algorithm,
+  a weight receives the penalty it missed when its feature is next present, after its gradient
+  step; in dense mode every weight is penalised every step. The two differ (the paper's is the
+  lazy one) where a weight absent for a while would have been clipped at zero in between.
+* *Iterate averaging* (Polyak & Juditsky 1992): ``state.avg_sum`` sums the weights after every
+  step from ``avg_from`` on; a row's missed steps are added in closed form on its next touch
+  and at each epoch's end (weights unchanged while absent, or shrunk by L2 for SGD and AdaGrad),
+  so the average equals the dense one's exactly for SGD, AdaGrad and FTRL, and is the exact
+  average of the lazy iterates for the other rules. Every epoch then ends with a full catch-up.
+
+Arrays of the remedies (zero rows when off):
+
+* ``shifted_grad_sum`` -- FTRL-Proximal's ``z`` (McMahan et al. 2013, Algorithm 1), the sum of
+  the gradients minus ``sigma * w`` terms; its ``n`` is ``sum_sq_grad``.
+* ``l1_applied`` -- the cumulative L1 penalty's ``q`` (Tsuruoka, Tsujii & Ananiadou 2009): the
+  signed total penalty each weight has received; ``l1_total`` is the paper's ``u``, the
+  penalty any weight could have received by now (a number, across epochs).
+* ``avg_sum`` -- iterate averaging: the sum of each weight over the steps counted so far,
+  always float64 (the averaged weights are ``avg_sum / steps counted``).
 """
 
 from __future__ import annotations
@@ -13,7 +41,7 @@ import numpy as np
 from .compiled import COUNT, LAST, POW1, POW2, STAT_COUNT, STAT_SUM
 from .optimizers import ADAM, BY_CODE
 
-STATE_ARRAY_NAMES = ("sum_sq_grad", "first_moment", "second_moment", "avg_sq_update")
+STATE_ARRAY_NAMES = ("sum_sq_grad", "first_moment", "second_moment", "avg_sq_update", "shifted_grad_sum")
 
 
 def _aligned_rows(n_rows: int, width: int) -> np.ndarray:
@@ -45,20 +73,34 @@ class KernelState:
     first_moment: np.ndarray
     second_moment: np.ndarray
     avg_sq_update: np.ndarray
+    shifted_grad_sum: np.ndarray
     info: np.ndarray
+    l1_applied: np.ndarray
+    avg_sum: np.ndarray
     step: int = 0
     pending: bool = False
+    l1_total: float = 0.0
 
     @classmethod
-    def new(cls, n_features: int, n_labels: int, optimizer_code: int, dtype=np.float64) -> "KernelState":
-        """Zero state for ``n_features`` features (plus the bias row) and ``n_labels`` labels."""
+    def new(cls, n_features: int, n_labels: int, optimizer_code: int, dtype=np.float64, *,
+            initial_sum_sq: float = 0.0, l1: bool = False, average: bool = False) -> "KernelState":
+        """Zero state for ``n_features`` features (plus the bias row) and ``n_labels`` labels.
+
+        ``initial_sum_sq`` is where AdaGrad's ``sum_sq_grad`` starts (its rule's
+        ``initial_sum_sq``); ``l1`` and ``average`` allocate the arrays of SGD's cumulative L1
+        penalty and of iterate averaging.
+        """
         n_rows = n_features + 1
         used = BY_CODE[optimizer_code].state_arrays
         arrays = {
             name: np.zeros((n_rows if name in used else 0, n_labels), dtype=dtype)
             for name in STATE_ARRAY_NAMES
         }
-        return cls(**arrays, info=_aligned_rows(n_rows, 8 if optimizer_code == ADAM else 4))
+        if initial_sum_sq:
+            arrays["sum_sq_grad"].fill(initial_sum_sq)
+        return cls(**arrays, info=_aligned_rows(n_rows, 8 if optimizer_code == ADAM else 4),
+                   l1_applied=np.zeros((n_rows if l1 else 0, n_labels), dtype=dtype),
+                   avg_sum=np.zeros((n_rows if average else 0, n_labels)))
 
     @property
     def info_f(self) -> np.ndarray:

@@ -22,7 +22,20 @@ Decisions worth knowing:
   latter: softmax and hinge grow only linearly in the weights, so a run wild from its first
   epoch would otherwise never trip the guard, and a tiny first-epoch loss (hinge on easy
   data) would make ordinary noise look like divergence. Non-finite weights are never
-  returned.
+  returned. Divergence as a user means it raises the same error: from the second epoch on,
+  a train loss above the all-zero model's (by more than ``ABOVE_ZERO_MARGIN``: the model
+  learnt less than nothing), or a train
+  loss (plus the L1 and L2 terms) that rose in each of ``RISING_EPOCHS`` epochs in a row, by
+  more than ``RISING_MARGIN`` times the all-zero model's loss in all.
+* Weights: ``label_weights`` and per-document ``sample_weight`` multiply each example's loss
+  and gradient. ``train_loss`` and ``dev_loss`` are then weighted means (sum of weight times
+  loss over the sum of the weights; the dev rows weighted by their labels' weights and
+  ``dev_weight``), and the history says so (``weighted_loss``); accuracy and macro-F1 are not
+  weighted.
+* Averaging (``average = E > 0``): from the first step of epoch ``E`` on, the trainer keeps the
+  mean of the weights after every step; each epoch's dev scores, early stopping, the best
+  epoch's weights and the returned weights are the averaged ones (the raw weights before
+  epoch ``E``). The train loss stays that of the raw iterates (computed as they train).
 * Feature statistics are accumulated over every epoch run (also after the best epoch).
   ``effective_step`` is NaN for a feature that never had a non-zero gradient.
 * ``optimizer="lbfgs"`` minimises ``mean loss + (l2/2)||W||^2`` with SciPy's L-BFGS-B
@@ -47,14 +60,24 @@ from . import kernels, losses
 from .lbfgs import fit_lbfgs
 from .monitor import Monitor, TrainResult, history_row, suggest_learning_rate
 from .optimizers import kernel_hyperparameters
-from .options import TrainOptions
+from .options import TrainOptions, parse_label_weights
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
 
 DIVERGENCE_FACTOR = 1e3
+# A train loss that rose in this many epochs in a row (each above the one before) is divergence.
+RISING_EPOCHS = 5
+# From the second epoch, a train loss this share above the all-zero model's is divergence (on
+# labels without signal a model's progressive loss hovers around the untrained model's, a
+# little above it: measured up to 18% above on scikit-learn's estimator checks, 20 random rows).
+ABOVE_ZERO_MARGIN = 0.25
+# ... by more than this share of the all-zero model's loss in all: a converged run's loss may
+# creep up by rounding, and with L2 the data loss may rise a little while the objective falls.
+RISING_MARGIN = 0.01
 
 
 def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | None = None,
-        progress: Callable[[dict], None] | None = None) -> TrainResult:
+        progress: Callable[[dict], None] | None = None, sample_weight=None, dev_weight=None,
+        label_names=None) -> TrainResult:
     """Train a linear classifier on sparse features.
 
     Parameters
@@ -70,6 +93,10 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
     options : TrainOptions, optional
     progress : callable, optional
         Called after each epoch with the history row plus ``epochs`` (the most epochs).
+    sample_weight, dev_weight : arrays of shape (n,) and (n_dev,), optional
+        Per-document weights (positive, finite) of the training and dev rows.
+    label_names : list of str, optional
+        The labels' names, for ``options.label_weights`` given per label.
 
     Returns
     -------
@@ -96,15 +123,22 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
             raise ValueError(f"X_dev has {X_dev.shape[1]} columns, X has {X.shape[1]}")
         if X_dev.shape[0] == 0:
             X_dev = y_dev = None
+    weights = example_weights(options.label_weights, y, n_labels, label_names, sample_weight, "sample_weight")
+    dev_weights = None
+    if X_dev is not None and (weights is not None or dev_weight is not None):
+        per_label = label_weight_vector(options.label_weights, y, n_labels, label_names)
+        dev_weights = per_label[y_dev] * (1.0 if dev_weight is None else _checked_weights(dev_weight, len(y_dev), "dev_weight"))
     if options.optimizer == "lbfgs":
+        if weights is not None:
+            raise ConfigError("--label-weights", options.label_weights, "lbfgs takes no weights; use a stochastic optimizer")
         return fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
-    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress)
+    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights)
 
 
 # --------------------------------------------------------------------------- stochastic rules
 
 
-def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
+def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=None, dev_weights=None):
     dtype = np.dtype(options.precision)
     n, n_features = X.shape
     data = np.ascontiguousarray(X.data, dtype=dtype)  # float32: converted once, here
@@ -115,7 +149,13 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     base_lr = options.base_learning_rate()
     lr = base_lr
     params = np.zeros((n_features + 1, n_labels), dtype=dtype)
-    state = kernels.KernelState.new(n_features, n_labels, code, dtype)
+    state = kernels.KernelState.new(n_features, n_labels, code, dtype,
+                                    initial_sum_sq=float(getattr(rule, "initial_sum_sq", 0.0)),
+                                    l1=options.l1 > 0 and options.optimizer == "sgd", average=options.average > 0)
+    steps_per_epoch = -(-n // options.batch_size)
+    avg_from = (options.average - 1) * steps_per_epoch if options.average else 0
+    averaged = np.empty_like(params) if options.average else None
+    total_weight = float(n if weights is None else weights.sum())
     rng = np.random.default_rng(options.seed)
     schedule_code = SCHEDULE_CODES[options.schedule]
     early_stopping = X_dev is not None and options.patience > 0
@@ -128,6 +168,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     stopped_early = False
     zero_model_loss = math.log(n_labels) if options.loss == "softmax" else 1.0
     reference_loss = zero_model_loss
+    train_losses: list[float] = []
     last_lr = lr
     for epoch in range(1, options.epochs + 1):
         started = time.perf_counter()
@@ -138,24 +179,32 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
             X.indptr, X.indices, data, y, order, params, state, loss_code=losses.LOSS_CODES[options.loss],
             optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
             l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
-            **hyper)
-        train_loss = loss_sum / n
+            l1=options.l1, example_weight=weights, avg_from=avg_from, **hyper)
+        train_loss = loss_sum / total_weight
         if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
                 or not kernels.all_finite(params)):
             suggestion, basis = suggest_learning_rate(base_lr, train_loss, zero_model_loss, history)
             raise DivergenceError(base_lr, epoch, train_loss, options.optimizer, suggestion, basis)
+        train_losses.append(train_loss + _penalty(params, options))
+        _check_course(train_losses, train_loss, zero_model_loss, base_lr, options.optimizer, history)
         if epoch == 1:
             reference_loss = max(train_loss, zero_model_loss)
         last_lr = schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)
-        row = history_row(epoch, train_loss, last_lr, params, options.loss, dev, y_dev, threads)
+        current = params
+        if averaged is not None and state.step > avg_from:
+            np.divide(state.avg_sum, state.step - avg_from, out=averaged, casting="unsafe")
+            current = averaged
+        row = history_row(epoch, train_loss, last_lr, current, options.loss, dev, y_dev, threads, dev_weights)
+        if weights is not None or dev_weights is not None:
+            row["weighted_loss"] = True
         improved = monitor.update(row)
         if improved:
             best_epoch = epoch
             if early_stopping:  # one buffer, reused: at most one extra copy of the weights
                 if best_params is None:
-                    best_params = params.copy()
+                    best_params = current.copy()
                 else:
-                    np.copyto(best_params, params)
+                    np.copyto(best_params, current)
         row["seconds"] = time.perf_counter() - started
         history.append(row)
         if progress is not None:
@@ -172,6 +221,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
         params = best_params
     else:
         best_epoch = len(history)
+        params = current
     stats = _feature_stats(rule, state, code, last_lr, n_features)
     return TrainResult(np.ascontiguousarray(params[:-1]), params[-1].copy(), history, best_epoch,
                        stopped_early, stats, options)
@@ -192,6 +242,77 @@ def _feature_stats(rule, state, code, lr, n_features, block=1 << 14) -> dict:
             step[lo:hi] = np.broadcast_to(part, (hi - lo, n_labels)).mean(axis=1)
     return {"update_count": count, "abs_update_sum": state.stat_abs_update_sum[:n_features].copy(),
             "effective_step": np.where(count > 0, step, np.nan)}
+
+
+def _penalty(params, options) -> float:
+    """The regularisation term of the objective SGD-like rules minimise (0 for FTRL, whose
+    lambdas weigh the sum of the losses, and without L1 and L2)."""
+    if options.optimizer == "ftrl" or (options.l2 == 0 and options.l1 == 0):
+        return 0.0
+    W = params[:-1]
+    return 0.5 * options.l2 * float(np.vdot(W, W)) + options.l1 * float(np.abs(W).sum())
+
+
+def _check_course(objectives, loss, zero_model_loss, base_lr, optimizer, history=()) -> None:
+    """Divergence as a user means it (see the module docstring): raise DivergenceError.
+    ``objectives`` are the epochs' train losses plus the penalty at the epoch's end (with L2 the
+    data loss may rise while the objective falls), ``loss`` the last train loss."""
+    epoch = len(objectives)
+    train_losses = objectives
+    suggestion, basis = suggest_learning_rate(base_lr, loss, zero_model_loss, list(history))
+    if epoch >= 2 and loss > (1.0 + ABOVE_ZERO_MARGIN) * zero_model_loss:
+        raise DivergenceError(base_lr, epoch, loss, optimizer, suggestion, basis,
+                              reason=f"train loss {loss:.4g} above the untrained model's {zero_model_loss:.4g}")
+    recent = train_losses[-(RISING_EPOCHS + 1):]
+    if (len(recent) == RISING_EPOCHS + 1 and all(b > a for a, b in zip(recent, recent[1:]))
+            and recent[-1] - recent[0] > RISING_MARGIN * zero_model_loss):
+        raise DivergenceError(base_lr, epoch, loss, optimizer, suggestion, basis,
+                              reason=f"train loss rose {RISING_EPOCHS} epochs in a row")
+
+
+# --------------------------------------------------------------------------- weights
+
+
+def label_weight_vector(label_weights, y, n_labels, label_names=None) -> np.ndarray:
+    """One weight per label: ones, ``"balanced"`` (``n / (n_labels * n_k)`` over the training rows
+    ``y``, scikit-learn's ``class_weight="balanced"``; a label without rows weighs 1), or the
+    ``label=weight`` pairs of :func:`lintext.engine.options.parse_label_weights`."""
+    out = np.ones(n_labels)
+    if label_weights is None:
+        return out
+    parsed = parse_label_weights(label_weights)
+    if parsed == "balanced":
+        counts = np.bincount(np.asarray(y), minlength=n_labels).astype(np.float64)
+        present = counts > 0
+        out[present] = len(y) / (n_labels * counts[present])
+        return out
+    names = list(label_names) if label_names is not None else [str(k) for k in range(n_labels)]
+    for name, weight in parsed.items():
+        if name not in names:
+            raise ConfigError("--label-weights", label_weights, f"{name!r} is not a label of the training data")
+        out[names.index(name)] = weight
+    return out
+
+
+def example_weights(label_weights, y, n_labels, label_names, sample_weight, name="sample_weight"):
+    """Each training row's weight (its label's times its own), or None when every weight is 1."""
+    if label_weights is None and sample_weight is None:
+        return None
+    out = label_weight_vector(label_weights, y, n_labels, label_names)[y]
+    if sample_weight is not None:
+        out = out * _checked_weights(sample_weight, len(y), name)
+    if not out.sum() > 0:
+        raise ValueError(f"the training rows' weights add up to {out.sum():g}: nothing to learn from")
+    return np.ascontiguousarray(out, dtype=np.float64)
+
+
+def _checked_weights(weights, n, name) -> np.ndarray:
+    weights = np.asarray(weights, dtype=np.float64)
+    if weights.shape != (n,):
+        raise ValueError(f"{name} must have one weight per row ({n}), got shape {weights.shape}")
+    if not np.all(np.isfinite(weights)) or np.any(weights < 0):
+        raise ValueError(f"{name} must hold finite weights of at least 0")
+    return weights
 
 
 # --------------------------------------------------------------------------- checks

@@ -16,8 +16,8 @@ from lintext.engine import schedules
 from lintext.engine.reference import reference_epoch
 from lintext.engine.compiled import schedule_lr
 
-OPTIMIZERS = ["sgd", "adagrad", "adadelta", "rmsprop", "adam"]
-LRS = {"sgd": 0.3, "adagrad": 0.3, "adadelta": 1.0, "rmsprop": 0.01, "adam": 0.02}
+OPTIMIZERS = ["sgd", "adagrad", "adadelta", "rmsprop", "adam", "ftrl"]
+LRS = {"sgd": 0.3, "adagrad": 0.3, "adadelta": 1.0, "rmsprop": 0.01, "adam": 0.02, "ftrl": 0.3}
 
 
 def run_epoch(*args, optimizer_code, **kwargs):

@@ -100,7 +100,7 @@ def test_update_is_pure():
         rule = optim.make_rule(name)
         state = rule.init_state(grad.shape)
         before = {k: v.copy() for k, v in state.items()}
-        rule.update(grad, state, 0.1)
+        optim.apply_step(rule, np.array([0.2, 0.4]), grad, state, 0.1, l2=0.1, l1=0.01)
         for k in state:
             np.testing.assert_array_equal(state[k], before[k])
 
@@ -189,7 +189,7 @@ def test_make_rule_checks_hyperparameters():
     # One registry: every optimizer with a learning rate has a rule, a kernel code and a default rate;
     # codes are distinct; each rule's hyperparameters are its dataclass fields.
     codes = [spec.code for spec in optim.OPTIMIZERS.values() if spec.code is not None]
-    assert len(codes) == len(set(codes)) == len(optim.STEP_OPTIMIZERS) == 5
+    assert len(codes) == len(set(codes)) == len(optim.STEP_OPTIMIZERS) == 6
     assert all(optim.OPTIMIZERS[n].rule is not None and optim.OPTIMIZERS[n].default_learning_rate > 0
                for n in optim.STEP_OPTIMIZERS)
     assert optim.OPTIMIZERS["adadelta"].hyperparameters == {"rho": 0.95, "epsilon": 1e-6}  # Zeiler 2012's defaults
