@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import os
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Callable
 
 import numpy as np
@@ -19,12 +19,14 @@ from . import confidence
 from .engine.footprint import check_fits
 from .engine.metrics import confusion_counts, label_scores, summary_scores
 from .engine.options import TrainOptions
+from .engine.sparsity import zero_weights
 from .errors import ConfigError, InputError
 from .evidence import training_extras
 from .explanation import dev_errors, require_calibration
 from .model import Model, stored_weights
 from .text.featurizer import Featurizer, FeaturizerConfig
-from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus, split_dev
+from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus
+from .text.split import split_dev
 
 # Progress callback: receives ``{"stage": ...}`` dictionaries (reading, featurizing, epoch,
 # evaluating, run, probe); the command line turns them into a display.
@@ -68,6 +70,18 @@ class PreparedData:
     dev_set: Corpus | None
     description: dict
 
+    @property
+    def weights(self) -> np.ndarray | None:
+        """Per-document weights of the training rows (from the reader's weight column), or None."""
+        return None if self.train_set.weights is None else np.asarray(self.train_set.weights, dtype=np.float64)
+
+    @property
+    def dev_weights(self) -> np.ndarray | None:
+        """Per-document weights of the dev rows, when the dev rows have them."""
+        if self.dev_set is None or self.dev_set.weights is None:
+            return None
+        return np.asarray(self.dev_set.weights, dtype=np.float64)
+
 
 def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
                  seed: int = 0, reader: ReaderOptions | None = None, n_jobs: int = 1,
@@ -86,7 +100,7 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
     corpus = as_corpus(data, reader=reader)
     if dev is not None:
         train_set = corpus
-        dev_set = as_corpus(dev, reader=reader, min_labels=1)
+        dev_set = as_corpus(dev, reader=_unweighted(reader), min_labels=1)  # weights only in DATA
     elif dev_fraction and dev_fraction > 0:
         train_set, dev_set = split_dev(corpus, dev_fraction, seed=seed)
     else:
@@ -111,6 +125,8 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
         "nonzeros": int(X.nnz),
         "featurize_seconds": round(time.perf_counter() - started, 3),
     }
+    if train_set.weights is not None:
+        description["weight_column"] = reader.weight_column
     y_dev = dev_set.label_indices(labels) if dev_set is not None else None
     return PreparedData(feat, labels, X, train_set.label_indices(labels), X_dev, y_dev, train_set, dev_set, description)
 
@@ -158,7 +174,8 @@ def build_model(
     topts = TrainOptions.from_mapping(options).validate()
     prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report, options=topts)
     result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
-                 progress=lambda row: report({"stage": "epoch", **row}))
+                 progress=lambda row: report({"stage": "epoch", **row}), sample_weight=prep.weights,
+                 dev_weight=prep.dev_weights, label_names=prep.labels)
     info = {
         "training": topts.to_json(),
         "best_epoch": int(result.best_epoch),
@@ -168,6 +185,7 @@ def build_model(
         "metrics": {},
     }
     train_set = prep.train_set
+    info["sparsity"] = zero_weights(result.coef, prep.featurizer.document_frequency)
     # the weights as the model directory keeps them (float32), so the metrics below are those of the saved model
     model = Model(prep.featurizer, stored_weights(result.coef), result.intercept, prep.labels, topts.loss, info,
                   result.feature_stats)
@@ -175,7 +193,7 @@ def build_model(
     finish_with_dev(model, prep)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
-        test_set = as_corpus(test, reader=reader, min_labels=1)
+        test_set = as_corpus(test, reader=_unweighted(reader), min_labels=1)
         model.info["data"]["test"] = test_set.path
         model.info["metrics"]["test"] = evaluate(model, test_set)
     return model
@@ -376,3 +394,8 @@ def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels
 
 def _is_path(data) -> bool:
     return isinstance(data, (str, os.PathLike))
+
+
+def _unweighted(reader):
+    """``reader`` without its weight column: dev and test files need not have one."""
+    return None if reader is None or getattr(reader, "weight_column", None) is None else replace(reader, weight_column=None)

@@ -5,7 +5,8 @@ files of several corpora, mean over seeds; and AdaGrad's default run against SGD
 Corpora (train/test CSV files written once under ``/tmp/lintext-bench/quality/``):
 
 * ``demo``: the invented demo corpus, ``data/demo/train.csv`` and ``test.csv``;
-* ``fortunes``: Debian's fortunes package (``../shared/tools/fortunes_corpus.sh``), 80/20 split;
+* ``fortunes``: Debian's fortunes package (``../shared/tools/fortunes_corpus.sh``), 80/20 split
+  (here and below, labels with fewer than 20 texts left out);
 * ``manpages``: the manual pages of the installed Debian packages labelled by section
   (``scripts/make_manpages.py``), 80/20 split;
 * ``synthetic``: ``scripts/make_synth.py`` (15,000 texts, 20 labels, 50,000 invented words), 80/20.
@@ -92,8 +93,13 @@ def write_csv(path: Path, rows) -> Path:
     return path
 
 
-def split_files(name: str, rows: list) -> tuple[Path, Path]:
-    """An 80/20 split (seed 0) of ``(text, label)`` rows into train.csv and test.csv."""
+def split_files(name: str, rows: list, min_documents: int = 20) -> tuple[Path, Path]:
+    """An 80/20 split (seed 0) of ``(text, label)`` rows into train.csv and test.csv, labels with
+    fewer than ``min_documents`` texts left out (a dev split needs a few of each)."""
+    counts: dict = {}
+    for _, label in rows:
+        counts[label] = counts.get(label, 0) + 1
+    rows = [row for row in rows if counts[row[1]] >= min_documents]
     order = np.random.default_rng(0).permutation(len(rows))
     cut = int(0.8 * len(rows))
     train = write_csv(FOLDER / name / "train.csv", [rows[i] for i in order[:cut]])

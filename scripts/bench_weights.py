@@ -26,7 +26,8 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from lintext.engine.metrics import confusion_counts, summary_scores  # noqa: E402
-from lintext.text.readers import ReaderOptions, read_corpus, split_dev  # noqa: E402
+from lintext.text.readers import ReaderOptions, read_corpus  # noqa: E402
+from lintext.text.split import split_dev  # noqa: E402
 
 
 def npz_bytes(**arrays) -> int:

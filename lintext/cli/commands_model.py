@@ -19,8 +19,8 @@ from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
 from .app import command, err, out, show_progress, status
 from .display import Display
-from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, ModelPath, QuietOpt, featurizer_options,
-                      reader_options, training_options)
+from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, ModelPath, QuietOpt, WeightColumnOpt,
+                      featurizer_options, reader_options, training_options, with_weight_column)
 
 
 @command
@@ -37,6 +37,7 @@ def train(
     featurizer: FeaturizerConfig = None,
     options: TrainOptions = None,
     jobs: JobsOpt = 0,
+    weight_column: WeightColumnOpt = None,
     no_report: Annotated[bool, typer.Option("--no-report", help="Skip features.csv and report.html.")] = False,
     force: ForceOpt = False,
     quiet: QuietOpt = False,
@@ -52,7 +53,8 @@ def train(
     display = Display(show_progress(quiet))
     try:
         model = build_model(data, dev=dev, test=test, dev_fraction=dev_fraction, featurizer=featurizer,
-                            options=options, reader=reader, n_jobs=jobs, progress=display)
+                            options=options, reader=with_weight_column(reader, weight_column), n_jobs=jobs,
+                            progress=display)
     finally:
         display.close()
     from ..report.writer import write_report  # matplotlib loads only when a report is written

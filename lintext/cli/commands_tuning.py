@@ -16,8 +16,8 @@ from ..text.readers import ReaderOptions
 from ..tuning.ladder import DEFAULT_HIGHEST_RATE, DEFAULT_LOWEST_RATE, DEFAULT_STEPS_PER_RUNG
 from .app import command, out, show_progress, status
 from .display import Display, print_wide
-from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, featurizer_options, reader_options,
-                      training_options)
+from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, WeightColumnOpt,
+                      featurizer_options, reader_options, training_options, with_weight_column)
 
 
 @command
@@ -29,7 +29,7 @@ def sweep(
     out_dir: Annotated[Path, typer.Option("--out", metavar="DIR", help="Folder for sweep.csv, sweep.json, sweep.html and best/ (a lintext sweep there is replaced atomically; any other folder is refused).")],
     dev: DevOpt = None,
     dev_fraction: DevFractionOpt = 0.1,
-    optimizers: Annotated[str, typer.Option("--optimizers", help="Comma-separated optimizers: sgd, adagrad, adadelta, rmsprop, adam.")] = "sgd,adagrad,adam",
+    optimizers: Annotated[str, typer.Option("--optimizers", help="Comma-separated optimizers: sgd, adagrad, adadelta, rmsprop, adam, ftrl.")] = "sgd,adagrad,adam",
     learning_rates: Annotated[str, typer.Option("--learning-rates", help="Comma-separated learning rates, each tried with every optimizer.")] = "1e-4,1e-3,1e-2,1e-1,1",
     workers: Annotated[int, typer.Option("--workers", help="Runs at once, each in its own process (0 = one per core); results do not depend on it.")] = 0,
     reader: ReaderOptions = None,
@@ -37,6 +37,7 @@ def sweep(
     options: TrainOptions = None,
     jobs: JobsOpt = 0,
     force: ForceOpt = False,
+    weight_column: WeightColumnOpt = None,
     quiet: QuietOpt = False,
 ):
     """Train every optimizer with every learning rate in parallel; keep the best run as a model.
@@ -53,8 +54,8 @@ def sweep(
     display = Display(show_progress(quiet))
     try:
         result = sweeping.sweep(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
-                                optimizers=names, learning_rates=rates, workers=workers, reader=reader, n_jobs=jobs,
-                                progress=display)
+                                optimizers=names, learning_rates=rates, workers=workers,
+                                reader=with_weight_column(reader, weight_column), n_jobs=jobs, progress=display)
     finally:
         display.close()
     with status(f"Writing {out_dir}", quiet):

@@ -36,6 +36,18 @@ DevFractionOpt = Annotated[float, typer.Option(
 JobsOpt = Annotated[int, typer.Option("--jobs", help="Processes for featurizing large corpora (0 = one per core).")]
 ForceOpt = Annotated[bool, typer.Option(
     "--force", help="Replace --out even when lintext did not write it (never the current folder or an input).")]
+WeightColumnOpt = Annotated[Optional[str], typer.Option(
+    "--weight-column", metavar="NAME",
+    help="Column or field of DATA holding each document's weight (a number of at least 0); the losses shown are then weighted.")]
+
+
+def with_weight_column(reader, weight_column):
+    """``reader`` reading per-document weights from ``weight_column`` too (when given)."""
+    from dataclasses import replace
+
+    from ..text.readers import ReaderOptions
+
+    return replace(reader or ReaderOptions(), weight_column=weight_column).validate() if weight_column else reader
 
 
 def _group(target: str, params: list, build):
@@ -137,7 +149,7 @@ featurizer_options = _group("featurizer", [
         "--max-df", metavar="NUMBER", help="Drop features in more than this share of documents (or count, if a whole number).")],
      str(_FCONFIG.max_df)),
     ("max_features", Annotated[Optional[int], typer.Option("--max-features", help="Keep only the most frequent features.")], None),
-    ("weighting", Annotated[str, typer.Option("--weighting", help=f"{', '.join(WEIGHTINGS)} (log = 1 + ln count).")],
+    ("weighting", Annotated[str, typer.Option("--weighting", help=f"{', '.join(WEIGHTINGS)} (log = 1 + ln count; log-tfidf = log times idf).")],
      _FCONFIG.weighting),
     ("normalize", Annotated[bool, typer.Option("--normalize/--no-normalize", help="Scale every document to unit length.")],
      _FCONFIG.normalize),

@@ -16,6 +16,7 @@ from . import figures
 from .confidence_page import calibration_section, coverage_section, errors_section
 from .confusions import confusion_section, evaluated_set
 from .layout import figure_block, fmt, kv, name_cell, page, pct, section, table
+from .remedies import comparison_block, remedies_block, zero_column
 from .stats import RARE_DF, frequency_bins, key_numbers, rare_heavy, top_features
 
 CENTRED_NOTE = ("Weight norms and weights on this page are taken after removing each feature's mean weight across "
@@ -82,7 +83,7 @@ def report_page(model, table_: dict, top: int = 10, rare_rows: int = 15, title: 
                      f"The optimizer ({optimizer}) has no per-feature effective step (L-BFGS works on the whole "
                      "objective at once), so this figure is left out.")
     sections.append(section("steps", "Effective step per feature", figure_block(figures.effective_steps(bins), GUIDE["steps"], steps_missing)))
-    sections.append(section("bins", "Per frequency bin", _bins_table(bins, has_stats, why)))
+    sections.append(section("bins", "Per frequency bin", _bins_table(bins, has_stats, why, zero_column(model, table_, bins))))
     sections.append(section("labels", "Strongest features per label", _top_tables(model, table_, top)))
     sections.append(section("rare", "Rare features with large weights", _rare_table(model, table_, rare_rows)))
 
@@ -166,7 +167,7 @@ def _summary(model, info, training, history, data, metrics, table_) -> str:
             rows.append([name, fmt(m.get("documents")), fmt(m.get("accuracy")), fmt(m.get("macro_f1")), fmt(m.get("weighted_f1"))])
     scores = table(["set", "documents", "accuracy", "macro-F1", "weighted-F1"], rows, {1, 2, 3, 4}) if rows else \
         '<p class="muted">No dev or test set was evaluated.</p>'
-    return f'<div class="cards">{cards}</div>\n<h3>Scores</h3>\n{scores}'
+    return f'<div class="cards">{cards}</div>\n{remedies_block(info)}\n<h3>Scores</h3>\n{scores}'
 
 
 def _key_numbers(k: dict) -> str:
@@ -182,20 +183,20 @@ def _key_numbers(k: dict) -> str:
     return '<ul class="numbers">' + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
 
 
-def _bins_table(bins: list, has_stats: bool, why: str) -> str:
+def _bins_table(bins: list, has_stats: bool, why: str, zeros: list) -> str:
     rows = []
-    for r in bins:
+    for r, zero in zip(bins, zeros):
         spread = f" ({fmt(r['update_q25'], 3)}–{fmt(r['update_q75'], 3)})" if math.isfinite(r["update_q25"]) else ""
         rows.append([escape(r["label"]), fmt(r["features"]), pct(r["feature_share"]), pct(r["update_share"]),
                      fmt(r["median_weight_norm"], 3), fmt(r["median_update"], 3) + spread,
-                     fmt(r["median_update_count"], 3), fmt(r["median_effective_step"], 3)])
+                     fmt(r["median_update_count"], 3), fmt(r["median_effective_step"], 3), zero])
     head = ["document frequency", "features", "share of features", "share of total |Δw|", "median weight norm",
-            "median sum |Δw| (middle half)", "median updates", "median effective step"]
+            "median sum |Δw| (middle half)", "median updates", "median effective step", "exactly zero"]
     intro = ('<p class="muted">Features grouped by the number of training documents containing them (log-spaced bins). '
              "Shares are of all features and of the total movement of the weights during training.</p>")
     if not has_stats:
         intro += f'<p class="note">{escape(why)}: only counts and weight norms are given.</p>'
-    return intro + table(head, rows, set(range(1, 8)))
+    return intro + table(head, rows, set(range(1, 9)))
 
 
 def _top_tables(model, table_: dict, top: int) -> str:
@@ -277,7 +278,9 @@ def comparison_page(entries: list, title: str | None = None) -> str:
     sections.append(section("learning", "Learning curves", figure_block(
         figures.compare_learning(series), GUIDE["compare_learning"], "None of these models has a per-epoch history.")))
     sections.append(section("bins", "Per frequency bin", _compare_bins(bins_of)))
-    nav = [("models", "Models"), ("frequency", "Frequency and updates"), ("learning", "Learning curves"), ("bins", "Bins")]
+    sections.append(section("remedies", "Remedies side by side", comparison_block(entries)))
+    nav = [("models", "Models"), ("frequency", "Frequency and updates"), ("learning", "Learning curves"), ("bins", "Bins"),
+           ("remedies", "Remedies")]
     return page(title, subtitle, nav, sections)
 
 

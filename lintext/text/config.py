@@ -11,7 +11,7 @@ from numbers import Integral
 
 from ..errors import ConfigError, ModelFileError
 
-WEIGHTINGS = ("binary", "count", "log", "tfidf")
+WEIGHTINGS = ("binary", "count", "log", "tfidf", "log-tfidf")
 HASH_SPACE_LIMITS = (16, 2**28)
 
 

@@ -2,7 +2,7 @@
 
 Word n-grams always; character n-grams inside word boundaries when asked
 (``char_wb``); a learned vocabulary or a fixed number of hashed columns.
-Weighting (``binary``, ``count``, ``log`` = 1 + ln count, ``tfidf``) and
+Weighting (``binary``, ``count``, ``log`` = 1 + ln count, ``tfidf``, ``log-tfidf`` = (1 + ln count) x idf) and
 unit-length rows follow. The inverse document frequency is scikit-learn's
 smoothed form ``idf = ln((1 + n) / (1 + df)) + 1`` (``TfidfTransformer`` with
 ``smooth_idf=True``): the textbook ``log(N / df)`` (Manning, Raghavan & Schütze
@@ -251,6 +251,9 @@ class Featurizer:
         elif w == "log":
             X.data = 1.0 + np.log(X.data)
         elif w == "tfidf":
+            X = (X @ sp.diags(self.idf())).tocsr()
+        elif w == "log-tfidf":  # scikit-learn's TfidfVectorizer(sublinear_tf=True)
+            X.data = 1.0 + np.log(X.data)
             X = (X @ sp.diags(self.idf())).tocsr()
         if self.config.normalize:
             X = _normalize_rows(X, norm="l2", copy=False)

@@ -45,6 +45,7 @@ class ReaderOptions:
     label_column: str = "label"
     id_column: str | None = None
     header: bool = True
+    weight_column: str | None = None  # a column or field of per-document weights (training only)
 
     def validate(self) -> "ReaderOptions":
         if self.format is not None and self.format not in FORMATS:
@@ -68,6 +69,7 @@ class Record:
     label: str | None
     source: str  # "file:line" or the document's own file
     id: str | None = None  # the --id-column value, carried to the predictions
+    weight: float | None = None  # from ReaderOptions.weight_column
 
 
 @dataclass
@@ -80,6 +82,7 @@ class Corpus:
     path: str = ""
     label_names: list[str] = field(default_factory=list)
     ids: list[str | None] | None = None
+    weights: list[float] | None = None  # per-document weights, when read from a weight column
 
     def __post_init__(self):
         if not self.label_names:
@@ -108,7 +111,9 @@ class Corpus:
     def from_records(cls, records, path="") -> "Corpus":
         records = list(records)
         ids = [r.id for r in records] if any(r.id is not None for r in records) else None
-        return cls([r.text for r in records], [r.label for r in records], [r.source for r in records], str(path), ids=ids)
+        weights = [r.weight for r in records] if records and records[0].weight is not None else None
+        return cls([r.text for r in records], [r.label for r in records], [r.source for r in records], str(path), ids=ids,
+                   weights=weights)
 
     def subset(self, index) -> "Corpus":
         return Corpus(
@@ -118,6 +123,7 @@ class Corpus:
             self.path,
             list(self.label_names),
             None if self.ids is None else [self.ids[i] for i in index],
+            None if self.weights is None else [self.weights[i] for i in index],
         )
 
     def label_counts(self) -> dict[str, int]:
@@ -185,6 +191,8 @@ def iter_records(
     if fmt == "folder":
         if not p.is_dir():
             raise InputError(p, "not a folder")
+        if reader.weight_column is not None:
+            raise ConfigError("--weight-column", reader.weight_column, "a folder of documents has no columns")
         return _iter_folder(p)
     if p.is_dir():
         raise InputError(p, f"is a folder, not a {fmt} file")
@@ -195,7 +203,8 @@ def _iter_format(fmt: str, p, reader: ReaderOptions, require_labels: bool):
     if fmt == "lines":
         return _iter_lines(p)
     if fmt == "jsonl":
-        return _iter_jsonl(p, reader.text_column, reader.label_column, require_labels, reader.id_column)
+        return _iter_jsonl(p, reader.text_column, reader.label_column, require_labels, reader.id_column,
+                           reader.weight_column)
     return _iter_delimited(p, "\t" if fmt == "tsv" else ",", reader, require_labels)
 
 
@@ -308,6 +317,17 @@ def _check_label(label, path: Path, where: dict) -> str:
     return str(label).strip()
 
 
+def _weight(value, path, where: dict, column: str) -> float:
+    """A document weight: a finite number of at least 0; an InputError naming the record otherwise."""
+    try:
+        weight = float(value)
+    except (TypeError, ValueError):
+        weight = float("nan")
+    if isinstance(value, bool) or not (weight >= 0 and weight != float("inf")):
+        raise InputError(path, f"{column!r} must be a finite number of at least 0, not {value!r}", **where)
+    return weight
+
+
 def _iter_delimited(path, delimiter: str, reader: ReaderOptions, require_labels: bool):
     lines = _decoded_lines(path)
     # CSV: RFC 4180 quoting. TSV: the IANA text/tab-separated-values form, no quoting (a field holds
@@ -327,6 +347,8 @@ def _iter_delimited(path, delimiter: str, reader: ReaderOptions, require_labels:
         text_at = _column(name, header, width, reader.text_column, "text column", required=True)
         label_at = _column(name, header, width, reader.label_column, "label column", required=require_labels)
         id_at = _column(name, header, width, reader.id_column, "id column", required=True) if reader.id_column else None
+        weight_at = (_column(name, header, width, reader.weight_column, "weight column", required=True)
+                     if reader.weight_column else None)
         pending = [] if reader.header else [first]
         start = 1 if not reader.header else rows.line_num + 1
         count = 0
@@ -339,7 +361,8 @@ def _iter_delimited(path, delimiter: str, reader: ReaderOptions, require_labels:
                 raise InputError(name, f"{len(row)} fields where {'the header' if reader.header else 'line 1'} has {width}", **where)
             label = _check_label(row[label_at], name, where) if label_at is not None else None
             count += 1
-            yield Record(row[text_at], label, f"{name}:{where['line']}", None if id_at is None else row[id_at])
+            weight = None if weight_at is None else _weight(row[weight_at], name, where, reader.weight_column)
+            yield Record(row[text_at], label, f"{name}:{where['line']}", None if id_at is None else row[id_at], weight)
         if count == 0:
             raise InputError(name, "no records after the header line")
     except csv.Error as exc:
@@ -380,7 +403,8 @@ def _display(path) -> str:
     return "<standard input>" if str(path) == STDIN else str(path)
 
 
-def _iter_jsonl(path, text_column: str, label_column: str, require_labels: bool, id_column: str | None = None):
+def _iter_jsonl(path, text_column: str, label_column: str, require_labels: bool, id_column: str | None = None,
+                weight_column: str | None = None):
     count = 0
     source, path = path, _display(path)
     for number, line in enumerate(_decoded_lines(source), start=1):
@@ -415,36 +439,12 @@ def _iter_jsonl(path, text_column: str, label_column: str, require_labels: bool,
             if id_column not in obj:
                 raise InputError(path, f"no field {id_column!r}", **where)
             record_id = obj[id_column] if isinstance(obj[id_column], str) else json.dumps(obj[id_column])
+        weight = None
+        if weight_column is not None:
+            if weight_column not in obj:
+                raise InputError(path, f"no field {weight_column!r}", **where)
+            weight = _weight(obj[weight_column], path, where, weight_column)
         count += 1
-        yield Record(text, label, f"{path}:{number}", record_id)
+        yield Record(text, label, f"{path}:{number}", record_id, weight)
     if count == 0:
         raise InputError(path, "empty file")
-
-
-# ---------------------------------------------------------------- dev split
-
-
-def split_dev(corpus: Corpus, fraction: float = 0.1, seed: int = 0) -> tuple[Corpus, Corpus]:
-    """Stratified, seeded split into (train, dev).
-
-    Each label gives ``round(fraction * count)`` documents to dev, at least one,
-    and keeps at least one for training.
-    """
-    if not 0.0 < fraction < 1.0:
-        raise ConfigError("--dev-fraction", fraction, "must be between 0 and 1 (exclusive)")
-    rng = np.random.default_rng(seed)
-    labels = np.array(corpus.labels, dtype=object)
-    dev_index: list[int] = []
-    for name in corpus.label_names:
-        members = np.flatnonzero(labels == name)
-        if len(members) < 2:
-            raise InputError(
-                corpus.path,
-                f"label {name!r} has only {len(members)} document(s); a stratified dev split needs at least 2 "
-                "per label (add documents or give --dev FILE)",
-            )
-        take = min(max(1, int(round(fraction * len(members)))), len(members) - 1)
-        dev_index.extend(rng.permutation(members)[:take].tolist())
-    dev_set = set(dev_index)
-    train_index = [i for i in range(len(corpus)) if i not in dev_set]
-    return corpus.subset(train_index), corpus.subset(sorted(dev_index))

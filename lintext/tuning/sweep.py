@@ -45,6 +45,7 @@ from joblib import Parallel, delayed, parallel_config
 from ..engine.optimizers import STEP_OPTIMIZERS
 from ..engine.footprint import training_bytes, workers_that_fit
 from ..engine.options import TrainOptions
+from ..engine.sparsity import zero_weights
 from ..engine.trainer import fit
 from ..errors import ConfigError, DivergenceError, LinTextError
 from ..files import atomic_directory, atomic_file, write_json
@@ -129,15 +130,19 @@ def open_shared(folder: Path, shapes: dict):
 # --------------------------------------------------------------------------- runs
 
 
-def _run(folder: str, shapes: dict, index: int, options: TrainOptions, n_labels: int) -> tuple[dict, list[dict]]:
+def _run(folder: str, shapes: dict, index: int, options: TrainOptions, n_labels: int,
+         labels: list | None = None) -> tuple[dict, list[dict]]:
     """Train run ``index`` in a worker; save its weights as ``run-<index>.npz`` in ``folder``."""
     folder = Path(folder)
     X, y, X_dev, y_dev = open_shared(folder, shapes)
+    weights = {name: np.load(folder / f"{name}.npy", allow_pickle=False) if (folder / f"{name}.npy").exists() else None
+               for name in ("sample_weight", "dev_weight")}
     seen: list[dict] = []
     started, cpu = time.perf_counter(), time.process_time()
     try:
         result = fit(X, y, n_labels, X_dev, y_dev, options,
-                     progress=lambda row: seen.append({k: v for k, v in row.items() if k != "epochs"}))
+                     progress=lambda row: seen.append({k: v for k, v in row.items() if k != "epochs"}),
+                     label_names=labels, **weights)
     except DivergenceError as exc:
         return run_row(index, options, seen, None, f"diverged at epoch {exc.epoch}", time.perf_counter() - started,
                        time.process_time() - cpu, diverged_epoch=exc.epoch), seen
@@ -268,9 +273,13 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     remove_shared_leftovers()
     with tempfile.TemporaryDirectory(prefix=f"{SHARED_PREFIX}{os.getpid()}-") as folder:
         shapes = share_arrays(Path(folder), prepared.X, prepared.y, prepared.X_dev, prepared.y_dev)
+        for name, array in (("sample_weight", prepared.weights), ("dev_weight", prepared.dev_weights)):
+            if array is not None:
+                np.save(Path(folder) / f"{name}.npy", array, allow_pickle=False)
         # Smallest learning rates first: they tend to run every epoch, so the long runs start
         # early and the short ones fill the gaps at the end (longest-first scheduling).
         order = sorted(range(len(grid)), key=lambda i: (grid[i].learning_rate, i))
+<<<<<<< HEAD
         tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels) for i in order)
         try:
             with parallel_config(backend="loky", inner_max_num_threads=1):
@@ -280,6 +289,13 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
         except BaseException:  # an error, Ctrl-C or SIGTERM: no worker runs on after the sweep
             stop_worker_processes()
             raise
+=======
+        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels, prepared.labels) for i in order)
+        with parallel_config(backend="loky", inner_max_num_threads=1):
+            for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
+                found[row["run"]] = (row, history)
+                report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
+>>>>>>> cad6bd7 (Remedies on train, sweep and the Python API: document weights from a column, label weights, the report's remedies and exactly-zero counts, compare side by side; log-tfidf weighting)
         rows = [found[i][0] for i in range(len(grid))]
         histories = [found[i][1] for i in range(len(grid))]
         best = best_run(rows, base.stop_metric)
@@ -324,7 +340,12 @@ def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, histor
         "metrics": {},
         "sweep": {"runs": n_runs, "run": row["run"], "stop_metric": options.stop_metric},
     }
+<<<<<<< HEAD
     model = Model(prepared.featurizer, stored_weights(weights["coef"]), weights["intercept"], prepared.labels, options.loss,
                   info, stats)
+=======
+    info["sparsity"] = zero_weights(weights["coef"], prepared.featurizer.document_frequency)
+    model = Model(prepared.featurizer, weights["coef"], weights["intercept"], prepared.labels, options.loss, info, stats)
+>>>>>>> cad6bd7 (Remedies on train, sweep and the Python API: document weights from a column, label weights, the report's remedies and exactly-zero counts, compare side by side; log-tfidf weighting)
     finish_with_dev(model, prepared)  # calibration, dev errors and dev metrics, as after train
     return model

@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from lintext.errors import ConfigError, InputError
-from lintext.text.readers import ReaderOptions, iter_chunks, read_corpus, split_dev
+from lintext.text.readers import ReaderOptions, iter_chunks, read_corpus
+from lintext.text.split import split_dev
 
 from ..conftest import write
 
