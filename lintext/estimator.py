@@ -58,7 +58,8 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
     def __init__(self, loss=DEFAULTS.loss, optimizer=DEFAULTS.optimizer, learning_rate=DEFAULTS.learning_rate,
                  schedule=DEFAULTS.schedule, epochs=DEFAULTS.epochs, batch_size=DEFAULTS.batch_size, l2=DEFAULTS.l2,
                  early_stopping=True, validation_fraction=0.1, patience=DEFAULTS.patience, seed=DEFAULTS.seed,
-                 featurizer=None):
+                 featurizer=None, average=DEFAULTS.average, l1=DEFAULTS.l1, label_weights=DEFAULTS.label_weights,
+                 stop_metric=DEFAULTS.stop_metric):
         self.loss = loss
         self.optimizer = optimizer
         self.learning_rate = learning_rate
@@ -71,6 +72,10 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.patience = patience
         self.seed = seed
         self.featurizer = featurizer
+        self.average = average
+        self.l1 = l1
+        self.label_weights = label_weights
+        self.stop_metric = stop_metric
 
     def fit(self, X, y):
         if self.featurizer is not None:
@@ -95,7 +100,9 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         X.sort_indices()
         options = TrainOptions(loss=self.loss, optimizer=self.optimizer, learning_rate=self.learning_rate,
                                schedule=self.schedule, epochs=self.epochs, batch_size=self.batch_size, l2=self.l2,
-                               patience=self.patience if self.early_stopping else 0, seed=self.seed)
+                               patience=self.patience if self.early_stopping else 0, seed=self.seed,
+                               average=self.average, l1=self.l1, label_weights=self.label_weights,
+                               stop_metric=self.stop_metric)
         options.validate()
         X_dev = y_dev = None
         counts = np.bincount(codes)
@@ -104,7 +111,8 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
             train_rows, dev_rows = train_test_split(rows, test_size=self.validation_fraction, stratify=codes,
                                                     random_state=self.seed)
             X, X_dev, y_dev, codes = X[train_rows], X[dev_rows], codes[dev_rows], codes[train_rows]
-        result = fit(X, codes.astype(np.int64), len(self.classes_), X_dev, y_dev, options)
+        result = fit(X, codes.astype(np.int64), len(self.classes_), X_dev, y_dev, options,
+                     label_names=[str(c) for c in self.classes_])
         self.coef_ = np.ascontiguousarray(result.coef.T)
         self.intercept_ = result.intercept.copy()
         self.history_ = result.history

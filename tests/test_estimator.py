@@ -31,7 +31,8 @@ def test_defaults_are_the_command_line_defaults():
     from lintext.engine.options import TrainOptions
 
     defaults, params = TrainOptions(), LinTextClassifier().get_params()
-    for name in ("loss", "optimizer", "learning_rate", "schedule", "epochs", "batch_size", "l2", "patience", "seed"):
+    for name in ("loss", "optimizer", "learning_rate", "schedule", "epochs", "batch_size", "l2", "patience", "seed",
+                 "average", "l1", "label_weights", "stop_metric"):
         assert params[name] == getattr(defaults, name), name
     assert params["early_stopping"] is True
 

@@ -53,7 +53,7 @@ class TrainOptions:
     Remedies for rare features (each off by default unless measured to help; see the README):
     ``average`` (an epoch, 0 = off) averages the weights over every step from the start of that
     epoch on (Polyak & Juditsky 1992), and the averaged weights are what dev scores, early stopping
-    and the saved model use; ``initial_sum_sq`` is where AdaGrad's sum of squared gradients starts;
+    and the saved model use (L-BFGS, which takes no steps, ignores it); ``initial_sum_sq`` is where AdaGrad's sum of squared gradients starts;
     ``l1`` is an L1 penalty (SGD: the cumulative penalty of Tsuruoka, Tsujii & Ananiadou 2009,
     with ``l2`` an elastic net; FTRL: its ``lambda_1``); ``beta`` is FTRL's; ``label_weights`` is
     ``"balanced"`` (label ``k`` weighs ``n / (K * n_k)``, scikit-learn's definition) or
@@ -87,7 +87,7 @@ class TrainOptions:
     epsilon: float | None = None
     rho: float | None = None
     threads: int | None = None
-    average: int = 0
+    average: int = 2
     initial_sum_sq: float | None = None
     l1: float = 0.0
     beta: float | None = None
@@ -138,8 +138,6 @@ class TrainOptions:
         spec = self.spec
         if self.l1 > 0 and self.optimizer not in ("sgd", "ftrl"):
             raise ConfigError(flag("l1"), self.l1, f"only for --optimizer sgd or ftrl, not {self.optimizer}")
-        if self.average and self.optimizer == "lbfgs":
-            raise ConfigError(flag("average"), self.average, "lbfgs takes no steps to average")
         if self.schedule in WITHIN_EPOCH and self.optimizer != "sgd":
             raise ConfigError(flag("schedule"), self.schedule,
                               f"only for --optimizer sgd; {self.optimizer} adapts its own steps (use constant or plateau)")

@@ -83,15 +83,18 @@ class KernelState:
 
     @classmethod
     def new(cls, n_features: int, n_labels: int, optimizer_code: int, dtype=np.float64, *,
-            initial_sum_sq: float = 0.0, l1: bool = False, average: bool = False) -> "KernelState":
+            initial_sum_sq: float | None = None, l1: bool = False, average: bool = False) -> "KernelState":
         """Zero state for ``n_features`` features (plus the bias row) and ``n_labels`` labels.
 
-        ``initial_sum_sq`` is where AdaGrad's ``sum_sq_grad`` starts (its rule's
-        ``initial_sum_sq``); ``l1`` and ``average`` allocate the arrays of SGD's cumulative L1
-        penalty and of iterate averaging.
+        ``initial_sum_sq`` is where AdaGrad's ``sum_sq_grad`` starts (``None``: its rule's
+        default, ``AdaGrad.initial_sum_sq``); ``l1`` and ``average`` allocate the arrays of SGD's
+        cumulative L1 penalty and of iterate averaging.
         """
+        spec = BY_CODE[optimizer_code]
+        if initial_sum_sq is None:
+            initial_sum_sq = spec.hyperparameters.get("initial_sum_sq", 0.0)
         n_rows = n_features + 1
-        used = BY_CODE[optimizer_code].state_arrays
+        used = spec.state_arrays
         arrays = {
             name: np.zeros((n_rows if name in used else 0, n_labels), dtype=dtype)
             for name in STATE_ARRAY_NAMES

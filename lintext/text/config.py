@@ -24,7 +24,7 @@ class FeaturizerConfig:
     min_df: float = 2
     max_df: float = 1.0
     max_features: int | None = None
-    weighting: str = "tfidf"
+    weighting: str = "log-tfidf"
     normalize: bool = True
     lowercase: bool = True
     hash_space: int | None = None

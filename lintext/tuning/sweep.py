@@ -279,8 +279,7 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
         # Smallest learning rates first: they tend to run every epoch, so the long runs start
         # early and the short ones fill the gaps at the end (longest-first scheduling).
         order = sorted(range(len(grid)), key=lambda i: (grid[i].learning_rate, i))
-<<<<<<< HEAD
-        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels) for i in order)
+        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels, prepared.labels) for i in order)
         try:
             with parallel_config(backend="loky", inner_max_num_threads=1):
                 for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
@@ -289,13 +288,6 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
         except BaseException:  # an error, Ctrl-C or SIGTERM: no worker runs on after the sweep
             stop_worker_processes()
             raise
-=======
-        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels, prepared.labels) for i in order)
-        with parallel_config(backend="loky", inner_max_num_threads=1):
-            for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
-                found[row["run"]] = (row, history)
-                report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
->>>>>>> cad6bd7 (Remedies on train, sweep and the Python API: document weights from a column, label weights, the report's remedies and exactly-zero counts, compare side by side; log-tfidf weighting)
         rows = [found[i][0] for i in range(len(grid))]
         histories = [found[i][1] for i in range(len(grid))]
         best = best_run(rows, base.stop_metric)
@@ -340,12 +332,8 @@ def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, histor
         "metrics": {},
         "sweep": {"runs": n_runs, "run": row["run"], "stop_metric": options.stop_metric},
     }
-<<<<<<< HEAD
+    info["sparsity"] = zero_weights(weights["coef"], prepared.featurizer.document_frequency)
     model = Model(prepared.featurizer, stored_weights(weights["coef"]), weights["intercept"], prepared.labels, options.loss,
                   info, stats)
-=======
-    info["sparsity"] = zero_weights(weights["coef"], prepared.featurizer.document_frequency)
-    model = Model(prepared.featurizer, weights["coef"], weights["intercept"], prepared.labels, options.loss, info, stats)
->>>>>>> cad6bd7 (Remedies on train, sweep and the Python API: document weights from a column, label weights, the report's remedies and exactly-zero counts, compare side by side; log-tfidf weighting)
     finish_with_dev(model, prepared)  # calibration, dev errors and dev metrics, as after train
     return model

@@ -44,7 +44,7 @@ def test_adagrad_three_steps():
     #          G=7.69, w = -1.2 + 0.5*1.2/sqrt(7.69)    = -0.9836344662
     # (epsilon = 1e-10 moves these by < 1e-10.)
     expected = [[0.5, -1.5], [0.2763932023, -1.2], [0.1563987361, -0.9836344662]]
-    np.testing.assert_allclose(three_steps(optim.AdaGrad(), 0.5), expected, rtol=1e-9)
+    np.testing.assert_allclose(three_steps(optim.AdaGrad(initial_sum_sq=0.0), 0.5), expected, rtol=1e-9)
 
 
 def test_rmsprop_three_steps():

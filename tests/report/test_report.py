@@ -116,7 +116,7 @@ def tiny_model():
     return lintext.build_model(
         corpus, dev_fraction=0,
         featurizer=FeaturizerConfig(ngrams=(1, 1), min_df=1, weighting="binary", normalize=False),
-        options=lintext.TrainOptions(optimizer="sgd", batch_size=1, epochs=2, patience=0, learning_rate=0.5),
+        options=lintext.TrainOptions(optimizer="sgd", batch_size=1, epochs=2, patience=0, learning_rate=0.5, average=0),
     )
 
 

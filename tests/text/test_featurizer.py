@@ -35,7 +35,7 @@ def test_tfidf_hand_worked_example():
     assert X[1, col["bus"]] == pytest.approx(idf_rare, abs=1e-12)
     assert X[0, col["bus"]] == 0
     # with unit length: doc 0 = (2a, a) / (a * sqrt(5))
-    Xn = Featurizer(FeaturizerConfig(ngrams=(1, 1), min_df=1)).fit_transform(DOCS)
+    Xn = Featurizer(FeaturizerConfig(ngrams=(1, 1), min_df=1, weighting="tfidf")).fit_transform(DOCS)
     assert Xn[0, col["ferry"]] == pytest.approx(2 / math.sqrt(5), abs=1e-12)
 
 
@@ -43,10 +43,13 @@ def test_tfidf_hand_worked_example():
 def test_tfidf_matches_scikit_learn(ngrams, min_df):
     # Reference: scikit-learn CountVectorizer + TfidfTransformer(norm="l2", smooth_idf=True).
     texts = DOCS + ["late ferry again", "refund for the bus", "the ferry"]
-    ours = Featurizer(FeaturizerConfig(ngrams=ngrams, min_df=min_df)).fit_transform(texts)
+    ours = Featurizer(FeaturizerConfig(ngrams=ngrams, min_df=min_df, weighting="tfidf")).fit_transform(texts)
     counts = CountVectorizer(ngram_range=ngrams, min_df=min_df).fit_transform(texts)
     ref = TfidfTransformer().fit_transform(counts)
     assert abs(ours - ref).max() < 1e-12
+    # The default weighting, log-tfidf: TfidfTransformer(sublinear_tf=True), 1 + ln tf.
+    ours = Featurizer(FeaturizerConfig(ngrams=ngrams, min_df=min_df)).fit_transform(texts)
+    assert abs(ours - TfidfTransformer(sublinear_tf=True).fit_transform(counts)).max() < 1e-12
 
 
 @pytest.mark.parametrize("weighting, expect", [("binary", [1.0, 1.0]), ("count", [2.0, 1.0]), ("log", [1 + math.log(2), 1.0])])
