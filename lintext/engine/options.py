@@ -47,8 +47,9 @@ class TrainOptions:
     ``batch_size = 8`` was measured as the best compromise on synthetic text-like problems:
     SGD, AdaGrad and Adam reach the dev loss of batch size 1 with fewer, cheaper steps;
     RMSProp and AdaDelta do poorly with batch size 1 under lazy updates and prefer 32 or more.
-    The defaults of the optimizer (plain SGD at 3.0), the epochs (50) and the patience (5) were
-    chosen by measurement on the demo and fortunes corpora (see the README).
+    The defaults of the optimizer (plain SGD at 3, its weights averaged from epoch 2), the
+    epochs (50) and the patience (5) were chosen by measurement on four corpora
+    (``scripts/bench_quality.py``; see the README).
 
     Remedies for rare features (each off by default unless measured to help; see the README):
     ``average`` (an epoch, 0 = off) averages the weights over every step from the start of that
