@@ -37,9 +37,10 @@ class Display:
             self.spinner = err.status(_SPINNER_TEXT[stage](event))
             self.spinner.start()
         elif stage == "epoch":
-            info = f"train loss {event['train_loss']:.4f}"
+            weighted = "weighted " if event.get("weighted_loss") else ""
+            info = f"{weighted}train loss {event['train_loss']:.4f}"
             if event.get("dev_loss") is not None:
-                info += (f"  dev loss {event['dev_loss']:.4f}  dev accuracy {event['dev_accuracy']:.3f}  "
+                info += (f"  {weighted}dev loss {event['dev_loss']:.4f}  dev accuracy {event['dev_accuracy']:.3f}  "
                          f"dev macro-F1 {event['dev_macro_f1']:.3f}")
             self._bar("epoch", event["epochs"], event["epoch"], info)
         elif stage == "run":

@@ -342,39 +342,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             for l in range(n_labels):
                 g[l] = 0.0
         nonzero = 0
-        if opt_code == FTRL:
-            lam2 = reg
-            for l in range(n_labels):
-                w = params[j, l] * 1.0
-                n_old = sum_sq_grad[j, l] * 1.0
-                n_new = n_old + g[l] * g[l]
-                sigma = (np.sqrt(n_new) - np.sqrt(n_old)) / lr
-                z = shifted_grad_sum[j, l] + g[l] - sigma * w
-                shifted_grad_sum[j, l] = z
-                sum_sq_grad[j, l] = n_new
-                if abs(z) <= pen:
-                    params[j, l] = 0.0
-                else:
-                    params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
-                nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
-        elif pen > 0.0:  # SGD with the cumulative L1 penalty (and L2 when reg > 0)
-            shrink = 1.0 + lr * reg
-            for l in range(n_labels):
-                w = params[j, l] * 1.0
-                v = (w - lr * g[l]) / shrink
-                q = l1_applied[j, l] * 1.0
-                if v > 0.0:
-                    nv = max(0.0, v - (l1_total + q))
-                elif v < 0.0:
-                    nv = min(0.0, v + (l1_total - q))
-                else:
-                    nv = v
-                l1_applied[j, l] = q + (nv - v)
-                params[j, l] = nv
-                nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
-        elif opt_code == SGD:
+        if opt_code == SGD and pen == 0.0:
             if reg > 0.0:
                 shrink = 1.0 + lr * reg
                 for l in range(n_labels):
@@ -429,7 +397,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 params[j, l] = w + lr * dx
                 nonzero += g[l] != 0.0
                 moved[l] = abs(params[j, l] - w)
-        else:  # ADAM
+        elif opt_code == ADAM:
             f1 = decay1[s]
             f2 = decay2[s]
             info[j, COUNT] += 1
@@ -453,6 +421,38 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 first_moment[j, l] = m1
                 second_moment[j, l] = v
                 params[j, l] = w - step * m1 / (np.sqrt(v) + eps)
+                nonzero += g[l] != 0.0
+                moved[l] = abs(params[j, l] - w)
+        elif opt_code == FTRL:
+            lam2 = reg
+            for l in range(n_labels):
+                w = params[j, l] * 1.0
+                n_old = sum_sq_grad[j, l] * 1.0
+                n_new = n_old + g[l] * g[l]
+                sigma = (np.sqrt(n_new) - np.sqrt(n_old)) / lr
+                z = shifted_grad_sum[j, l] + g[l] - sigma * w
+                shifted_grad_sum[j, l] = z
+                sum_sq_grad[j, l] = n_new
+                if abs(z) <= pen:
+                    params[j, l] = 0.0
+                else:
+                    params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
+                nonzero += g[l] != 0.0
+                moved[l] = abs(params[j, l] - w)
+        else:  # SGD with the cumulative L1 penalty (pen > 0; and L2 when reg > 0)
+            shrink = 1.0 + lr * reg
+            for l in range(n_labels):
+                w = params[j, l] * 1.0
+                v = (w - lr * g[l]) / shrink
+                q = l1_applied[j, l] * 1.0
+                if v > 0.0:
+                    nv = max(0.0, v - (l1_total + q))
+                elif v < 0.0:
+                    nv = min(0.0, v + (l1_total - q))
+                else:
+                    nv = v
+                l1_applied[j, l] = q + (nv - v)
+                params[j, l] = nv
                 nonzero += g[l] != 0.0
                 moved[l] = abs(params[j, l] - w)
         if nonzero > 0:

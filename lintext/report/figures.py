@@ -161,7 +161,8 @@ def _learning_curves(history, best_epoch, loss_name):
     ax_loss.plot(epochs, train, color=SERIES[0], marker="o", ms=3, label="train")
     if np.isfinite(dev).any():
         ax_loss.plot(epochs, dev, color=SERIES[1], marker="s", ms=3, ls="--", label="dev")
-    ax_loss.set_ylabel(f"mean {loss_name} loss")
+    weighted = "weighted " if any(row.get("weighted_loss") for row in history) else ""
+    ax_loss.set_ylabel(f"{weighted}mean {loss_name} loss")
     ax_loss.set_title("Loss")
     ax_loss.legend()
     acc = _finite(row.get("dev_accuracy") for row in history)

@@ -168,7 +168,7 @@ def test_feature_stats_and_progress():
 
 
 @pytest.mark.parametrize("loss", ["softmax", "hinge"])
-@pytest.mark.parametrize("optimizer", ["sgd", "adagrad", "adadelta", "rmsprop", "adam"])
+@pytest.mark.parametrize("optimizer", ["sgd", "adagrad", "adadelta", "rmsprop", "adam", "ftrl"])
 def test_every_rule_learns_with_its_default_learning_rate(optimizer, loss):
     # Measured on this problem: the generating weights score 0.88 on rows 500-599 and the
     # majority label is 0.45 of them. Every default must get well above the majority rate.
