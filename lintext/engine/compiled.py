@@ -221,7 +221,7 @@ def score_examples_parallel(indptr, indices, data, y, order, start, stop, params
 def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_value, dscores, opt_code,
                lr, l2, params, sum_sq_grad, first_moment, second_moment, avg_sq_update, info,
                info_f, beta1, beta2, rho, epsilon, mark, g, moved, upcoming, n_up, active, n_active,
-               l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now):
+               l1, shifted_grad_sum, ftrl_beta):
     """Rows ``touched[lo:hi]``: sum the batch gradient from the row's entries, in example order
     (none: zero), then take one step of the rule; ``mark >= 0``: then set ``last_step`` to it.
 
@@ -235,16 +235,11 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     zero and add ``|w_after - w_before|`` summed over labels (``g`` and ``moved`` are scratch
     space of ``n_labels``; a running sum in the loop would keep it from vectorising).
 
-    Remedies (each off at its neutral value, leaving the loops above untouched):
-
-    * ``l1 > 0`` (SGD): after the step, Tsuruoka, Tsujii & Ananiadou's (2009) cumulative L1
-      penalty: ``l1_total`` is ``u``, the penalty every weight could have received so far, and
-      ``l1_applied[j, l]`` is ``q``, what it did receive; the weight moves toward zero by
-      ``u - |q|`` at most and never crosses it.
-    * ``opt_code == FTRL``: McMahan et al. (2013), Algorithm 1: ``sum_sq_grad`` is ``n``,
-      ``shifted_grad_sum`` is ``z``; ``lr`` is ``alpha``, ``ftrl_beta`` is ``beta``, ``l1`` and
-      ``l2`` are ``lambda_1`` and ``lambda_2`` (0 on the bias).
-    * ``avg_now``: the row's weights after the step are added to ``avg_sum`` (iterate averaging).
+    ``opt_code == FTRL`` is McMahan et al. (2013), Algorithm 1: ``sum_sq_grad`` is ``n``,
+    ``shifted_grad_sum`` is ``z``; ``lr`` is ``alpha``, ``ftrl_beta`` is ``beta``, ``l1`` and ``l2``
+    are ``lambda_1`` and ``lambda_2`` (0 on the bias); its branch comes after the other rules', so
+    they test nothing more than before. SGD's L1 penalty and averaging are passes of their own
+    after this one (:func:`penalise_rows`, :func:`average_rows`).
 
     Meanwhile it prefetches the weights and state of the rows ``upcoming[:n_up]`` (the next
     batch's), spread evenly over its rows: all at once, the prefetches would queue for the
@@ -291,10 +286,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 prefetch(avg_sq_update, jn, end)
         j = touched[s]
         reg = 0.0 if j == bias else l2
-        pen = 0.0 if j == bias else l1
         a = row_start[s]
         b = row_start[s + 1]
-        if n_active < n_labels and reg == 0.0 and pen == 0.0:  # SGD or AdaGrad on the active labels only
+        if n_active < n_labels and reg == 0.0:  # SGD or AdaGrad on the active labels only
             nonzero = 0
             for k in range(n_active):
                 c = active[k]
@@ -322,9 +316,6 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 if n_active % 2 == 1:
                     s0 += moved[n_active - 1]
                 info_f[j, STAT_SUM] += s0 + s1
-            if avg_now:
-                for l in range(n_labels):
-                    avg_sum[j, l] += params[j, l]
             if mark >= 0:
                 info[j, LAST] = mark
             continue
@@ -342,7 +333,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             for l in range(n_labels):
                 g[l] = 0.0
         nonzero = 0
-        if opt_code == SGD and pen == 0.0:
+        if opt_code == SGD:
             if reg > 0.0:
                 shrink = 1.0 + lr * reg
                 for l in range(n_labels):
@@ -424,6 +415,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 nonzero += g[l] != 0.0
                 moved[l] = abs(params[j, l] - w)
         elif opt_code == FTRL:
+            pen = 0.0 if j == bias else l1
             lam2 = reg
             for l in range(n_labels):
                 w = params[j, l] * 1.0
@@ -437,22 +429,6 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     params[j, l] = 0.0
                 else:
                     params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
-                nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
-        else:  # SGD with the cumulative L1 penalty (pen > 0; and L2 when reg > 0)
-            shrink = 1.0 + lr * reg
-            for l in range(n_labels):
-                w = params[j, l] * 1.0
-                v = (w - lr * g[l]) / shrink
-                q = l1_applied[j, l] * 1.0
-                if v > 0.0:
-                    nv = max(0.0, v - (l1_total + q))
-                elif v < 0.0:
-                    nv = min(0.0, v + (l1_total - q))
-                else:
-                    nv = v
-                l1_applied[j, l] = q + (nv - v)
-                params[j, l] = nv
                 nonzero += g[l] != 0.0
                 moved[l] = abs(params[j, l] - w)
         if nonzero > 0:
@@ -474,11 +450,48 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 s0 += moved[l]
                 l += 1
             info_f[j, STAT_SUM] += (s0 + s1) + (s2 + s3)
-        if avg_now:
-            for l in range(n_labels):
-                avg_sum[j, l] += params[j, l]
         if mark >= 0:
             info[j, LAST] = mark
+
+
+@njit(**NO_REFCOUNT)
+def penalise_rows(n_touched, touched, l1_total, l1_applied, params, info_f):
+    """SGD's cumulative L1 penalty on the rows ``touched[:n_touched]`` but the bias, after their
+    gradient step (Tsuruoka, Tsujii & Ananiadou 2009, Figure 2): ``l1_total`` is ``u``, the
+    penalty any weight could have received so far, ``l1_applied[j, l]`` is ``q``, what it did
+    receive; the weight moves toward zero by at most ``u - |q|`` and never crosses it. The
+    statistics add the penalty's ``|dw|`` to the step's."""
+    n_labels = params.shape[1]
+    bias = params.shape[0] - 1
+    for s in range(n_touched):
+        j = touched[s]
+        if j == bias:
+            continue
+        total = 0.0
+        for l in range(n_labels):
+            v = params[j, l] * 1.0
+            q = l1_applied[j, l] * 1.0
+            if v > 0.0:
+                nv = max(0.0, v - (l1_total + q))
+            elif v < 0.0:
+                nv = min(0.0, v + (l1_total - q))
+            else:
+                nv = v
+            l1_applied[j, l] = q + (nv - v)
+            params[j, l] = nv
+            total += abs(nv - v)
+        info_f[j, STAT_SUM] += total
+
+
+@njit(**NO_REFCOUNT)
+def average_rows(n_touched, touched, params, avg_sum):
+    """Iterate averaging: the rows ``touched[:n_touched]`` add their weights after this step to
+    ``avg_sum`` (the missed steps of absent rows are added on their next touch, :func:`average_missed`)."""
+    n_labels = params.shape[1]
+    for s in range(n_touched):
+        j = touched[s]
+        for l in range(n_labels):
+            avg_sum[j, l] += params[j, l]
 
 
 @njit(**NO_REFCOUNT)
@@ -504,8 +517,7 @@ def active_labels(loss_code, opt_code, dscores, n_ex, active):
 def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_example, entry_value, dscores,
                         opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                         avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark, active,
-                        n_active, l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now,
-                        n_chunks):
+                        n_active, l1, shifted_grad_sum, ftrl_beta, n_chunks):
     """:func:`apply_rows` over ``n_chunks`` contiguous chunks of the rows in parallel."""
     n_labels = params.shape[1]
     for c in prange(n_chunks):
@@ -515,8 +527,8 @@ def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_exampl
         apply_rows((n_rows * c) // n_chunks, (n_rows * (c + 1)) // n_chunks, touched, decay1, decay2,
                    row_start, entry_example, entry_value, dscores, opt_code, lr, l2, params,
                    sum_sq_grad, first_moment, second_moment, avg_sq_update, info, info_f, beta1,
-                   beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active, l1, l1_total,
-                   l1_applied, shifted_grad_sum, ftrl_beta, avg_sum, avg_now)
+                   beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active, l1,
+                   shifted_grad_sum, ftrl_beta)
 
 
 @njit(inline="always", **NO_REFCOUNT)
@@ -791,14 +803,15 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                 return loss_sum + total, t + 1, False
         loss_sum += total
         n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
-        u = l1_total[b] if penalised else 0.0
-        avg_now = averaging and t >= avg_from
         mark = t + 1 if lazy else -1
         apply_rows(0, n_touched, touched, decays[0], decays[1], row_start, entry_example, entry_value,
                    dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                    avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark,
-                   scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, u, l1_applied,
-                   shifted_grad_sum, ftrl_beta, avg_sum, avg_now)
+                   scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, shifted_grad_sum, ftrl_beta)
+        if penalised:
+            penalise_rows(n_touched, touched, l1_total[b], l1_applied, params, info_f)
+        if averaging and t >= avg_from:
+            average_rows(n_touched, touched, params, avg_sum)
     return loss_sum, step + n_batches, True
 
 
@@ -834,14 +847,15 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
                     info[touched[s], LAST] = t - missed[s]
             return total, False
     n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
-    u = l1_total[b] if l1_total.shape[0] > 0 else 0.0
-    avg_now = avg_sum.shape[0] > 0 and t >= avg_from
     mark = t + 1 if lazy else -1
     apply_rows_parallel(n_touched, touched, decays[0], decays[1], row_start, entry_example,
                         entry_value, dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment,
                         second_moment, avg_sq_update, info, info_f, beta1, beta2, rho, epsilon,
-                        mark, active, n_active, l1, u, l1_applied, shifted_grad_sum, ftrl_beta,
-                        avg_sum, avg_now, min(n_touched, 8 * n_threads))
+                        mark, active, n_active, l1, shifted_grad_sum, ftrl_beta, min(n_touched, 8 * n_threads))
+    if l1_total.shape[0] > 0:
+        penalise_rows(n_touched, touched, l1_total[b], l1_applied, params, info_f)
+    if avg_sum.shape[0] > 0 and t >= avg_from:
+        average_rows(n_touched, touched, params, avg_sum)
     return total, True
 
 

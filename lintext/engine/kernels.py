@@ -86,7 +86,8 @@ outside the batches goes parallel above ``PARALLEL_MIN_WORK_OUTSIDE_BATCHES``.
 
 Statistics (accumulated across epochs): ``stat_update_count[j]`` counts the steps in which
 row ``j`` had a non-zero loss gradient; ``stat_abs_update_sum[j]`` sums ``|w_after - w_before|``
-over labels and those steps, ``w_before`` being taken after catch-up.
+over labels and those steps, ``w_before`` being taken after catch-up (with SGD's L1 penalty, the
+gradient step's and the penalty's ``|dw|`` are added one after the other).
 """
 
 from __future__ import annotations
