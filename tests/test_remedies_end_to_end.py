@@ -112,9 +112,9 @@ def test_compare_shows_remedies_side_by_side(small_split):
     sparse = lintext.build_model(small_split["train"], dev=small_split["dev"],
                                  options={"epochs": 4, "l1": 1e-3, "average": 1})
     page = comparison_html([plain, sparse], names=["plain", "l1"])
-    assert "Remedies side by side" in page and "share of total |Δw| in features of at most 2 documents" in page
+    assert "Remedies side by side" in page and "share of |Δw| in features of ≤ 2 documents" in page
     assert "Features at exactly zero, per document-frequency bin" in page and "dev macro-F1" in page
-    assert "cumulative L1 penalty" in page and "iterate averaging from epoch 1" in page
+    assert "L1 0.001" in page and "averaged from epoch 1" in page
     assert "Remedies for rare features: none" in report_html(plain)
 
 

@@ -44,6 +44,25 @@ def remedies_on(info: dict) -> list[str]:
     return out
 
 
+def remedies_short(info: dict) -> list[str]:
+    """The remedies that were on, a few words each (for the comparison's narrow columns)."""
+    training = info.get("training") or {}
+    out = []
+    if training.get("optimizer") == "ftrl":
+        out.append(f"FTRL λ1 {fmt(training.get('l1', 0.0))}")
+    elif training.get("l1"):
+        out.append(f"L1 {fmt(training['l1'])}")
+    if training.get("average"):
+        out.append(f"averaged from epoch {training['average']}")
+    if training.get("optimizer") == "adagrad" and training.get("initial_sum_sq"):
+        out.append(f"AdaGrad start {fmt(training['initial_sum_sq'])}")
+    if training.get("label_weights"):
+        out.append(f"label weights {escape(str(training['label_weights']))}")
+    if (info.get("data") or {}).get("weight_column"):
+        out.append("document weights")
+    return out
+
+
 def remedies_block(info: dict) -> str:
     """The report's paragraph on the remedies that were on (or that none was)."""
     items = remedies_on(info)
@@ -68,9 +87,9 @@ def comparison_block(entries: list) -> str:
     """Side by side, one column per model: remedies, the share of total |Δw| taken by features in
     at most two documents, exactly-zero features (in all and per bin) and dev scores."""
     names = [escape(name) for name, _, _ in entries]
-    rows = [["remedies"] + [escape("; ".join(remedies_on(m.info or {})) or "none") for _, m, _ in entries]]
+    rows = [["remedies"] + ["; ".join(remedies_short(m.info or {})) or "none" for _, m, _ in entries]]
     numbers = [key_numbers(tab) for _, _, tab in entries]
-    rows.append([f"share of total |Δw| in features of at most {numbers[0]['rare_df'] if numbers else 2} documents"]
+    rows.append([f"share of |Δw| in features of ≤ {numbers[0]['rare_df'] if numbers else 2} documents"]
                 + [pct(k["rare_update_share"]) if math.isfinite(k["rare_update_share"]) else "–" for k in numbers])
     spars = [sparsity(m, tab) for _, m, tab in entries]
     rows.append(["features at exactly zero"] + [f"{fmt(s['exactly_zero'])} of {fmt(s['features'])}" for s in spars])
