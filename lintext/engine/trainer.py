@@ -49,6 +49,7 @@ from .monitor import Monitor, TrainResult, history_row, suggest_learning_rate
 from .optimizers import kernel_hyperparameters
 from .options import TrainOptions
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
+from .shards import RowShards, epoch_pieces, shard_dev_scores
 
 DIVERGENCE_FACTOR = 1e3
 
@@ -59,14 +60,16 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
 
     Parameters
     ----------
-    X : scipy.sparse matrix of shape (n, n_features)
-        Training features (converted to CSR; float64 or float32).
+    X : scipy.sparse matrix of shape (n, n_features), or :class:`~lintext.engine.shards.RowShards`
+        Training features (converted to CSR; float64 or float32); shards are read one at a time
+        and shuffled shard-wise (see :mod:`lintext.engine.shards`).
     y : int array of shape (n,)
-        Label index of each row, in ``[0, n_labels)``.
+        Label index of each row, in ``[0, n_labels)`` (``None`` with shards: they carry their labels).
     n_labels : int
         Number of labels (at least 2).
     X_dev, y_dev : optional
-        Dev rows, used for the history, early stopping and plateau decay; never for training.
+        Dev rows, used for the history, early stopping and plateau decay; never for training
+        (``X_dev`` may be RowShards, with ``y_dev`` None).
     options : TrainOptions, optional
     progress : callable, optional
         Called after each epoch with the history row plus ``epochs`` (the most epochs).
@@ -87,11 +90,18 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
     if int(n_labels) < 2:
         raise ConfigError("n_labels", n_labels, "need at least two labels")
     n_labels = int(n_labels)
-    X, y = check_training_arrays(X, y, n_labels, "X", "y")
+    if options.optimizer == "lbfgs":  # full batch: shards are stacked in memory
+        X, y = X.concatenated() if isinstance(X, RowShards) else (X, y)
+        X_dev, y_dev = X_dev.concatenated() if isinstance(X_dev, RowShards) else (X_dev, y_dev)
+    if isinstance(X_dev, RowShards):
+        y_dev = X_dev.labels()
+    if not isinstance(X, RowShards):
+        X, y = check_training_arrays(X, y, n_labels, "X", "y")
     if (X_dev is None) != (y_dev is None):
         raise ValueError("give both X_dev and y_dev, or neither")
     if X_dev is not None:
-        X_dev, y_dev = check_training_arrays(X_dev, y_dev, n_labels, "X_dev", "y_dev")
+        if not isinstance(X_dev, RowShards):
+            X_dev, y_dev = check_training_arrays(X_dev, y_dev, n_labels, "X_dev", "y_dev")
         if X_dev.shape[1] != X.shape[1]:
             raise ValueError(f"X_dev has {X_dev.shape[1]} columns, X has {X.shape[1]}")
         if X_dev.shape[0] == 0:
@@ -107,7 +117,9 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
 def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     dtype = np.dtype(options.precision)
     n, n_features = X.shape
-    data = np.ascontiguousarray(X.data, dtype=dtype)  # float32: converted once, here
+    # float32: converted once, here (shards: as each is read)
+    data = None if isinstance(X, RowShards) else np.ascontiguousarray(X.data, dtype=dtype)
+    check = lambda Xk, yk: check_training_arrays(Xk, yk, n_labels, "X", "y")  # noqa: E731  (each shard as read)
     code = options.spec.code
     rule = options.make_rule()
     hyper = kernel_hyperparameters(rule)
@@ -119,7 +131,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     rng = np.random.default_rng(options.seed)
     schedule_code = SCHEDULE_CODES[options.schedule]
     early_stopping = X_dev is not None and options.patience > 0
-    dev = None if X_dev is None else (X_dev.indptr, X_dev.indices, X_dev.data)
+    dev = None if X_dev is None or isinstance(X_dev, RowShards) else (X_dev.indptr, X_dev.indices, X_dev.data)
 
     history: list[dict] = []
     monitor = Monitor(options.stop_metric if X_dev is not None else "train-loss", options.min_improvement)
@@ -131,14 +143,19 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     last_lr = lr
     for epoch in range(1, options.epochs + 1):
         started = time.perf_counter()
-        order = rng.permutation(n).astype(np.int64)
-        # flush=False: the decaying rules leave the state decay of absent rows to their next
-        # touch (the weights are exact after every epoch either way); flushed once below.
-        loss_sum, finite = kernels.run_epoch(
-            X.indptr, X.indices, data, y, order, params, state, loss_code=losses.LOSS_CODES[options.loss],
-            optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
-            l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
-            **hyper)
+        loss_sum, finite = 0.0, True
+        # One piece in memory; one per shard for RowShards (engine/shards.py: how they are shuffled).
+        for piece in epoch_pieces(X, y, rng, dtype, check, data):
+            # flush=False: the decaying rules leave the state decay of absent rows to their next
+            # touch (the weights are exact after every epoch either way); flushed once below.
+            part, finite = kernels.run_epoch(
+                *piece.arrays(), params, state, loss_code=losses.LOSS_CODES[options.loss],
+                optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
+                l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
+                **hyper)
+            loss_sum += part
+            if not finite:
+                break
         train_loss = loss_sum / n
         if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
                 or not kernels.all_finite(params)):
@@ -148,6 +165,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
             reference_loss = max(train_loss, zero_model_loss)
         last_lr = schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)
         row = history_row(epoch, train_loss, last_lr, params, options.loss, dev, y_dev, threads)
+        if isinstance(X_dev, RowShards):
+            row.update(shard_dev_scores(X_dev, params, options.loss, threads, check))
         improved = monitor.update(row)
         if improved:
             best_epoch = epoch

@@ -185,6 +185,8 @@ def iter_records(
     if fmt == "folder":
         if not p.is_dir():
             raise InputError(p, "not a folder")
+        if (p / "store.json").is_file():  # lintext.text.store.STORE_FILE
+            raise InputError(p, "is a feature store (lintext featurize), not labelled files; this command reads the files")
         return _iter_folder(p)
     if p.is_dir():
         raise InputError(p, f"is a folder, not a {fmt} file")
