@@ -93,6 +93,7 @@ class ClusterRunner:
         self.client, self.run_data, self.n_labels, self.report = client, run_data, n_labels, report
         self.topic = f"lintext-runs-{uuid.uuid4().hex}"
         self.workers = len(client.scheduler_info()["workers"])
+        self.address = client.scheduler.address
         rows = run_data.shards or run_data.dev_shards
         store_json = str(Path(rows.load.path, "store.json")) if rows is not None else None
         self.shared = workers_share(client, run_data.folder, store_json)
@@ -116,7 +117,7 @@ class ClusterRunner:
                 self.run_data.folder if self.shared else None, self.arrays, pure=False,
                 key=f"lintext-run-{index}-{epochs}-{uuid.uuid4().hex[:8]}"))
         finished = set()
-        for future in distributed.as_completed(futures):
+        for future in distributed.as_completed(futures, loop=self.client.loop):
             row, history, weights = future.result()
             future.release()
             finished.add(keys[futures.index(future)])
@@ -133,8 +134,12 @@ class ClusterRunner:
         for index, (row, _, _) in results.items():
             row["attempts"] = max(1, starts[self.last_task[index]])
 
+    def close(self) -> None:
+        """Stop listening to the runs' start events."""
+        self.client.unsubscribe_topic(self.topic)
+
     def describe(self) -> dict:
-        return {"scheduler": self.client.scheduler.address, "workers": self.workers,
+        return {"scheduler": self.address, "workers": self.workers,
                 "data": "shared folder" if self.shared else "sent to every worker"}
 
 

@@ -236,6 +236,7 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
                 results, rungs = successive_halving(grid, runner, base.stop_metric, halving, report, order_key=first)
             if client is not None:
                 runner.count_attempts(results)
+                runner.close()
             rows = [results[i][0] for i in range(len(grid))]
             histories = [results[i][1] for i in range(len(grid))]
             best = best_run([r for r in rows if not r["status"].startswith("pruned")], base.stop_metric)
