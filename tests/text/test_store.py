@@ -180,6 +180,7 @@ def test_shards_are_shuffled_as_documented(corpus_csv, tmp_path, monkeypatch):
     assert np.array_equal(first.coef, again.coef) and not np.array_equal(first.coef, other.coef)
 
 
+@pytest.mark.slow
 def test_sharded_training_learns_as_well(tmp_path):
     # Sanity, not identity: several shards change the order of the rows, not what is learnt. On the
     # demo corpus a shard-wise shuffle reaches a dev accuracy within 0.03 of the full shuffle

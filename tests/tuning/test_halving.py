@@ -59,6 +59,7 @@ def test_halving_factor_is_checked(small_split):
     assert info.value.option == "--halving"
 
 
+@pytest.mark.slow
 def test_halving_page_and_table_say_pruned(small_split, tmp_path):
     result = sweep(small_split["train"], dev=small_split["dev"], optimizers="sgd", learning_rates=[1e-4, 0.01, 1.0, 10.0],
                    workers=1, halving=2, options={"epochs": 4, "patience": 0})
