@@ -230,3 +230,13 @@ def test_cli_featurize_train_evaluate_predict(small_split, tmp_path):
     stats = run("stats", tmp_path / "s")
     assert stats.exit_code == 2 and "is a feature store" in stats.output
     assert not (tmp_path / "m2").exists()
+
+
+def test_probe_reads_a_sharded_store_as_the_file(small_split, tmp_path):
+    # The probe's rows from a store of 3 shards, stacked: the same steps as from the file (same seed).
+    from lintext.tuning.probe import probe
+
+    featurize(small_split["train"], tmp_path / "s", dev=small_split["dev"], shard_rows=40)
+    from_store = probe(tmp_path / "s", steps=30)
+    from_file = probe(small_split["train"], dev=small_split["dev"], steps=30)
+    assert np.array_equal(from_store.losses, from_file.losses) and from_store.suggestion == from_file.suggestion
