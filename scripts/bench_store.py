@@ -40,7 +40,30 @@ from make_synth import make_corpus, write_corpus  # noqa: E402
 
 WORK = Path("/tmp/lintext-bench/store")
 LINTEXT = str(Path(sys.executable).with_name("lintext"))
+FORTUNES = Path("/tmp/lintext-bench/fortunes.tsv")
 MODES = {"hashing": ["--hash-space", "2^18"], "vocabulary": ["--ngrams", "1-1"]}
+
+
+def fortunes_csv(shuffled: bool = False) -> Path | None:
+    """Debian's fortunes as CSV with a ``text,label`` header (the TSV is "category<TAB>text", no header,
+    sorted by category); ``shuffled``: the lines in a seeded random order. None when the TSV is missing."""
+    import csv
+    import random
+
+    if not FORTUNES.exists():
+        return None
+    out = WORK / ("fortunes-shuffled.csv" if shuffled else "fortunes.csv")
+    if not out.exists():
+        with open(FORTUNES, encoding="utf-8") as fh:
+            rows = [line.rstrip("\n").split("\t", 1) for line in fh if "\t" in line]
+        if shuffled:
+            random.Random(0).shuffle(rows)
+        out.parent.mkdir(parents=True, exist_ok=True)
+        with open(out, "w", encoding="utf-8", newline="") as fh:
+            writer = csv.writer(fh, lineterminator="\n")
+            writer.writerow(["text", "label"])
+            writer.writerows([text, label] for label, text in rows)
+    return out
 
 
 def timed(args: list[str]) -> dict:
@@ -89,14 +112,14 @@ def shuffling(seeds: int, documents: int) -> list[dict]:
     from lintext.from_store import featurize
     from lintext.pipeline import prepare_data
 
-    fortunes = Path("/tmp/lintext-bench/fortunes.tsv")
     cases = [("demo", ROOT / "data/demo/train.csv", ROOT / "data/demo/dev.csv", 500)]
-    if fortunes.exists():
-        cases.append(("fortunes", fortunes, None, 2000))
+    if FORTUNES.exists():  # as built (sorted by category: every shard holds one or two labels) and shuffled
+        cases.append(("fortunes (file sorted by label)", fortunes_csv(), None, 2000))
+        cases.append(("fortunes (file shuffled)", fortunes_csv(shuffled=True), None, 2000))
     cases.append(("synthetic", corpus(documents, 200_000), None, max(1000, documents // 10)))
     rows = []
     for name, data, dev, shard_rows in cases:
-        store = featurize(data, WORK / f"shuffle-{name}", dev=dev, shard_rows=shard_rows)
+        store = featurize(data, WORK / f"shuffle-{name.split()[0]}-{len(rows)}", dev=dev, shard_rows=shard_rows)
         result = {"corpus": name, "shards": len(store.shards("data")), "documents": store.rows("data")}
         for label, stream in (("shards", True), ("full", False)):
             prep = prepare_data(store.path, stream=stream)
@@ -107,7 +130,7 @@ def shuffling(seeds: int, documents: int) -> list[dict]:
                 scores.append((best["dev_accuracy"], best["dev_macro_f1"]))
             result[f"{label}_accuracy"], result[f"{label}_macro_f1"] = (round(float(v), 4) for v in np.mean(scores, axis=0))
         rows.append(result)
-        print(f"{name:10s} {result['shards']:3d} shards: dev accuracy {result['shards_accuracy']:.4f} shard-wise, "
+        print(f"{name:32s} {result['shards']:3d} shards: dev accuracy {result['shards_accuracy']:.4f} shard-wise, "
               f"{result['full_accuracy']:.4f} full shuffle; macro-F1 {result['shards_macro_f1']:.4f} vs "
               f"{result['full_macro_f1']:.4f} (mean of {seeds} seeds)", flush=True)
     return rows
@@ -150,9 +173,10 @@ def main() -> int:
     report["load_average_after"] = os.getloadavg()
     out = ROOT / "bench-results"
     out.mkdir(exist_ok=True)
-    name = "store-million.json" if args.million and args.skip_memory and args.skip_shuffling else "store.json"
-    (out / name).write_text(json.dumps(report, indent=2) + "\n")
-    print(f"written to {out / name}")
+    path = out / "store.json"  # sections measured now replace the same sections of an earlier run
+    earlier = json.loads(path.read_text()) if path.exists() else {}
+    path.write_text(json.dumps({**earlier, **report}, indent=2) + "\n")
+    print(f"written to {path}")
     return 0
 
 
