@@ -55,17 +55,32 @@ class ShardLoader:
         shard = self._store.load_shard(self.part, k)
         return shard.X, self._store.label_ids(shard.labels, self.labels, self.part, k)
 
+    def records(self, k: int) -> np.ndarray:
+        """Record numbers of shard ``k``'s rows."""
+        if self._store is None:
+            self._store = open_store(self.path)
+        return np.asarray(self._store.load_shard(self.part, k).records)
+
+
+def stacked(rows: RowShards):
+    """The shards of a store's part stacked in memory in file order (rows are dealt to shards at random):
+    ``(X, y)`` as reading the source file gives them."""
+    if not isinstance(rows.load, ShardLoader):
+        return rows.concatenated()
+    X, y = rows.concatenated()
+    order = np.argsort(np.concatenate([rows.load.records(k) for k in range(len(rows.sizes))]), kind="stable")
+    return X[order], y[order]
+
 
 def rows_of(store: FeatureStore, part: str, labels: list[str], stream: bool | None):
-    """``(X, y)`` of a part: one matrix (memory-mapped when one shard), or RowShards and ``None``."""
+    """``(X, y)`` of a part: one matrix (memory-mapped when one shard; stacked in file order when ``stream`` is
+    False), or RowShards and ``None``."""
     sizes = [s["rows"] for s in store.shards(part)]
     loader = ShardLoader(store.path, part, labels)
+    rows = RowShards(sizes, store.n_features, loader)
     if stream or (stream is None and len(sizes) > 1):
-        return RowShards(sizes, store.n_features, loader), None
-    parts = [loader(k) for k in range(len(sizes))]
-    if len(parts) == 1:
-        return parts[0]
-    return sp.vstack([p[0] for p in parts], format="csr"), np.concatenate([p[1] for p in parts])
+        return rows, None
+    return loader(0) if len(sizes) == 1 else stacked(rows)
 
 
 def check_config(store: FeatureStore, featurizer: FeaturizerConfig | None) -> None:
@@ -124,7 +139,7 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
     """:func:`lintext.evidence.training_extras` for a model trained on a store's ``data`` part: the
     documents behind the rare features are read back from the source by record number (the store's
     fingerprint says it is unchanged); in hashing mode the n-grams naming the columns come from the
-    documents of the first shard (all of them when the part is one shard)."""
+    documents of the first shard (all of them when the part is one shard; a random sample else)."""
     chosen, _ = rare_columns(model, top_rare)
     wanted = np.zeros(store.n_features, dtype=bool)
     wanted[chosen] = True
@@ -142,11 +157,13 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
             label_ids.append(np.asarray(shard.labels)[rows])
             every = store.sources("data", k)
             sources += [every[i] for i in rows.tolist()]
-    needed = set(np.concatenate(records).tolist()) if records else set()
-    texts = _texts_by_record(store, needed | sample)
-    order = np.concatenate(records).tolist() if records else []
-    X = sp.vstack(blocks, format="csr") if blocks else sp.csr_matrix((0, store.n_features))
-    labels = [store.labels[i] for i in np.concatenate(label_ids).tolist()] if label_ids else []
+    found = np.concatenate(records) if records else np.zeros(0, dtype=np.int64)
+    texts = _texts_by_record(store, set(found.tolist()) | sample)
+    by_record = np.argsort(found, kind="stable")  # the rows in file order, as training from the file has them
+    order = found[by_record].tolist()
+    X = sp.vstack(blocks, format="csr")[by_record] if blocks else sp.csr_matrix((0, store.n_features))
+    labels = [store.labels[i] for i in np.concatenate(label_ids)[by_record].tolist()] if label_ids else []
+    sources = [sources[i] for i in by_record.tolist()]
     hashed = [texts[r] for r in sorted(sample)] if hashing else None
     return training_extras(model, [texts[r] for r in order], sources, X, train_labels=labels, top_rare=top_rare,
                            hashed_texts=hashed)
@@ -239,17 +256,16 @@ def store_dev_errors(model, dev: StorePart, X_dev, y_dev) -> dict:
 
 
 def store_score_rows(model, data):
-    """``(record, scores row)`` of every row of a store, in record order (parts merged)."""
+    """``(record, scores row)`` of every row of a store, in record order: the shards (each in record order;
+    rows are dealt to shards at random) merged, so every shard is scored before the first row is out."""
     store, parts = opened(data, model)
 
-    def part_rows(part):
-        for k in range(len(store.shards(part))):
-            shard = store.load_shard(part, k)
-            scores = model.matrix_scores(shard.X)
-            for record, row in zip(np.asarray(shard.records).tolist(), scores):
-                yield record, row
+    def shard_rows(part, k):
+        shard = store.load_shard(part, k)
+        yield from zip(np.asarray(shard.records).tolist(), model.matrix_scores(shard.X))
 
-    return heapq.merge(*(part_rows(p) for p in parts), key=lambda item: item[0])
+    every = [shard_rows(p, k) for p in parts for k in range(len(store.shards(p)))]
+    return heapq.merge(*every, key=lambda item: item[0])
 
 
 def is_store_data(data) -> bool:

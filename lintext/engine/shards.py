@@ -11,8 +11,10 @@ shards, each epoch draws a permutation of the shards and then, for each shard in
 permutation of its rows: every row is still seen once per epoch, in a seeded and deterministic
 order, but two rows of different shards are never interleaved within an epoch, and each shard's
 last batch may be smaller than ``batch_size``. Unlike a full shuffle, the rows of one shard stay
-together: when shards are not themselves mixed (a file sorted by label, say), the model sees a run
-of similar rows; ``lintext featurize`` writes shards in file order, so shuffle a sorted file first.
+together: were the shards not themselves mixed (consecutive rows of a file sorted by label, say),
+the model would see long runs of one label and end each epoch on the last shard's labels. So
+``lintext featurize`` deals the rows of a part of several shards to the shards at random (seeded;
+:class:`lintext.text.store.DealingWriter`): each shard is a random sample of the corpus.
 ``scripts/bench_store.py`` measures the effect on accuracy against a full shuffle.
 
 Only one shard's arrays are referenced at a time: the piece handed out is emptied before the next

@@ -149,9 +149,13 @@ class ShardWriter:
 
     def close(self) -> list[dict]:
         """Write what is left; the shards' names, rows and non-zeros."""
+        self.flush()
+        return self.shards
+
+    def flush(self) -> None:
+        """Write the rows waiting as one shard (however many they are)."""
         if self.pending_rows:
             self._write(self.pending_rows)
-        return self.shards
 
     def _write(self, rows: int) -> None:
         X = sp.vstack([p[0] for p in self.pending], format="csr") if len(self.pending) > 1 else self.pending[0][0]
@@ -172,6 +176,64 @@ class ShardWriter:
         with open(folder / "sources.txt", "w", encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
             fh.writelines(_escape(s) + "\n" for s in sources[:rows])
         self.shards.append({"name": name, "rows": int(rows), "nonzeros": int(X.nnz)})
+
+
+class DealingWriter:
+    """Deals the rows of one part to shards at random as they come: the ``j``-th row added goes to shard
+    ``deal[j]``. Each shard is spooled to files on disk and written at :meth:`close`, one shard at a time,
+    so memory stays bounded by a shard. Every shard is then a random sample of the part (in file order
+    within it), whatever the order of the file: a file sorted by label gives shards of mixed labels.
+    """
+
+    def __init__(self, folder: Path, part: str, deal: np.ndarray):
+        self.folder, self.part, self.deal = Path(folder), part, np.asarray(deal, dtype=np.int64)
+        self.spool = self.folder / f"spool-{part}"
+        self.spool.mkdir()
+        self.added, self.n_features = 0, None
+
+    def add(self, X: sp.csr_matrix, labels, records, sources) -> None:
+        X = X.tocsr()
+        n = X.shape[0]
+        target = self.deal[self.added:self.added + n]
+        self.added += n
+        self.n_features = X.shape[1]
+        labels, records, sources = np.asarray(labels, np.int64), np.asarray(records, np.int64), list(sources)
+        for k in np.unique(target).tolist():
+            rows = np.flatnonzero(target == k)
+            piece = X[rows]
+            arrays = {"data": piece.data.astype(np.float64), "indices": piece.indices.astype(np.int64),
+                      "lengths": np.diff(piece.indptr).astype(np.int64), "labels": labels[rows], "records": records[rows]}
+            for key, array in arrays.items():
+                with open(self.spool / f"{k}.{key}", "ab") as fh:
+                    fh.write(np.ascontiguousarray(array).tobytes())
+            with open(self.spool / f"{k}.sources", "a", encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
+                fh.writelines(_escape(sources[i]) + "\n" for i in rows.tolist())
+
+    def close(self) -> list[dict]:
+        """Write every shard from its spool files (one in memory at a time); the shards' names, rows and non-zeros."""
+        writer = ShardWriter(self.folder, self.part, 1 << 62)
+        for k in range(int(self.deal.max()) + 1 if self.deal.size else 0):
+            a = {key: np.fromfile(self.spool / f"{k}.{key}", dtype=np.float64 if key == "data" else np.int64)
+                 for key in ("data", "indices", "lengths", "labels", "records")}
+            index_dtype = np.int32 if max(self.n_features, a["data"].size) < 2**31 else np.int64
+            indptr = np.concatenate([[0], np.cumsum(a["lengths"])]).astype(index_dtype)
+            X = sp.csr_matrix((a["data"], a["indices"].astype(index_dtype), indptr),
+                              shape=(len(a["lengths"]), self.n_features), copy=False)
+            writer.add(X, a["labels"], a["records"], read_sources(self.spool / f"{k}.sources"))
+            writer.flush()
+            for f in self.spool.glob(f"{k}.*"):
+                f.unlink()
+        self.spool.rmdir()
+        return writer.shards
+
+
+def shard_writer(folder: Path, part: str, rows: int, shard_rows: int, seed: int):
+    """The writer of a part of ``rows`` rows: a :class:`DealingWriter` (random shards, seeded) when it
+    takes more than one shard of the ``data`` part, else a :class:`ShardWriter` (one shard, file order)."""
+    if part == "data" and rows > shard_rows:
+        deal = np.random.default_rng([int(seed), 1]).permutation(rows) // shard_rows
+        return DealingWriter(folder, part, deal)
+    return ShardWriter(folder, part, shard_rows)
 
 
 def write_store_json(folder: Path, featurizer: Featurizer, labels: list[str], parts: dict, sources: dict,

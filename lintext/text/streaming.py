@@ -40,7 +40,7 @@ from .config import FeaturizerConfig
 from .featurizer import Featurizer, df_mask, hashed_counts
 from ..files import atomic_directory
 from .readers import ReaderOptions, iter_records
-from .store import ShardWriter, fingerprint, open_store, read_sources, write_store_json
+from .store import ShardWriter, fingerprint, open_store, read_sources, shard_writer, write_store_json
 
 SHARD_ROWS = 100_000  # rows per shard: the demo and fortunes corpora are one shard each
 
@@ -177,6 +177,7 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
     if isinstance(shard_rows, bool) or not isinstance(shard_rows, int) or shard_rows < 1:
         raise ConfigError("--shard-rows", shard_rows, "must be a whole number of rows, at least 1")
     reader = (reader or ReaderOptions()).validate()
+    seed = 0 if seed is None else seed
     report = progress or (lambda event: None)
     config = (featurizer or FeaturizerConfig()).validate() if fitted is None else fitted.config
     map_chunks = map_chunks or (lambda function, chunks: map(function, chunks))
@@ -208,12 +209,19 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
 
     meter = _Meter(report, total)
 
+    n_data = int((~held).sum())
+    n_dev = int(held.sum()) + (0 if dev_ids is None else len(dev_ids))
+
     def fill(tmp: Path):
-        writers = {part: ShardWriter(tmp, part, shard_rows) for part in ("data", "dev")}
+        hashed = fitted is None and config.hashing  # raw shards dealt in _fit_hashed, then weighted one to one
+        writers = {part: ShardWriter(tmp, part, shard_rows) if hashed else shard_writer(tmp, part, rows, shard_rows, seed)
+                   for part, rows in (("data", n_data), ("dev", n_dev))}
         if fitted is not None:
             feat = fitted
         elif config.hashing:
-            feat = _fit_hashed(tmp, chunks(), config, shard_rows, map_chunks, meter)
+            (tmp / "raw").mkdir()
+            raw = {part: shard_writer(tmp / "raw", part, rows, shard_rows, seed) for part, rows in (("data", n_data), ("dev", n_dev))}
+            feat = _fit_hashed(tmp, chunks(), config, raw, map_chunks, meter)
         else:
             counter = VocabularyCounter(config)
             for chunk in chunks():
@@ -253,11 +261,8 @@ def _write_rows(writers, chunk: Chunk, X: sp.csr_matrix) -> None:
                               chunk.sources if whole else [chunk.sources[i] for i in rows.tolist()])
 
 
-def _fit_hashed(tmp: Path, chunks: Iterable[Chunk], config, shard_rows, map_chunks, meter) -> Featurizer:
+def _fit_hashed(tmp: Path, chunks: Iterable[Chunk], config, writers, map_chunks, meter) -> Featurizer:
     """Count every chunk hashed (``map_chunks``), write raw shards into ``tmp/raw``, and fit the limits."""
-    raw = tmp / "raw"
-    raw.mkdir()
-    writers = {part: ShardWriter(raw, part, shard_rows) for part in ("data", "dev")}
     df = np.zeros(config.hash_space, dtype=np.int64)
     n_train = 0
     for counts, chunk in map_chunks(_HashedTask(config), chunks):
@@ -286,7 +291,7 @@ class _HashedTask:
 
 def _weigh_raw_shards(tmp: Path, feat: Featurizer, writers, meter) -> None:
     raw = tmp / "raw"
-    for folder in sorted(p for p in raw.iterdir() if p.is_dir()):
+    for folder in sorted((p for p in raw.iterdir() if p.is_dir()), key=lambda p: p.name):
         part = folder.name.split("-")[0]
         a = {k: np.load(folder / f"{k}.npy", allow_pickle=False) for k in ("data", "indices", "indptr", "labels", "records")}
         counts = sp.csr_matrix((a["data"], a["indices"], a["indptr"]), shape=(len(a["indptr"]) - 1, feat.n_features))

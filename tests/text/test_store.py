@@ -43,6 +43,14 @@ def corpus_csv(tmp_path):
     return write_csv(tmp_path / "corpus.csv", small_corpus_rows(n_per_label=40))
 
 
+def in_file_order(store, part="data"):
+    """The part's matrix and labels with rows in file order (shards are dealt at random; records say where)."""
+    X, y = store.matrix(part)
+    records = np.concatenate([store.load_shard(part, k).records for k in range(len(store.shards(part)))])
+    order = np.argsort(records)
+    return X[order], y[order]
+
+
 def same_matrix(a, b) -> bool:
     a, b = sp.csr_matrix(a), sp.csr_matrix(b)
     return (a.shape == b.shape and np.array_equal(a.indptr, b.indptr) and np.array_equal(a.indices, b.indices)
@@ -58,6 +66,9 @@ def test_store_round_trips_to_the_matrix_of_the_in_memory_featurizer(corpus_csv,
     prepared = prepare_data(corpus_csv, featurizer=config, seed=3)
     X, y = store.matrix("data")
     X_dev, y_dev = store.matrix("dev")
+    records = np.concatenate([store.load_shard("data", k).records for k in range(len(store.shards("data")))])
+    in_file_order = np.argsort(records)  # several shards: rows dealt to shards at random, each in file order
+    X, y = X[in_file_order], y[in_file_order]
     assert same_matrix(X, prepared.X) and same_matrix(X_dev, prepared.X_dev)
     assert np.array_equal(y, prepared.y) and np.array_equal(y_dev, prepared.y_dev) and store.labels == prepared.labels
     feat, ref = store.featurizer, prepared.featurizer
@@ -65,10 +76,13 @@ def test_store_round_trips_to_the_matrix_of_the_in_memory_featurizer(corpus_csv,
     assert feat.feature_names == ref.feature_names
     if shard_rows == 7:
         assert [s["rows"] for s in store.shards("data")][:-1] == [7] * (len(store.shards("data")) - 1)
+        # dealt at random: the first shard is not the first rows, and each shard is in file order
+        first = store.load_shard("data", 0).records
+        assert first.tolist() != list(range(7)) and np.all(np.diff(first) > 0)
     # Source positions: each row's record number and "file:line" (header on line 1, record k on line k + 2).
-    records = np.concatenate([store.load_shard("data", k).records for k in range(len(store.shards("data")))])
-    assert records.tolist() == [int(s.rsplit(":", 1)[1]) - 2 for s in prepared.train_set.sources]
-    assert sum((store.sources("data", k) for k in range(len(store.shards("data")))), []) == prepared.train_set.sources
+    assert records[in_file_order].tolist() == [int(s.rsplit(":", 1)[1]) - 2 for s in prepared.train_set.sources]
+    sources = sum((store.sources("data", k) for k in range(len(store.shards("data")))), [])
+    assert [sources[i] for i in in_file_order] == prepared.train_set.sources
 
 
 def test_store_matches_scikit_learn_vectorizers(corpus_csv, tmp_path):
@@ -77,11 +91,11 @@ def test_store_matches_scikit_learn_vectorizers(corpus_csv, tmp_path):
     store = featurize(corpus_csv, tmp_path / "s", dev_fraction=0, shard_rows=11)
     texts = read_corpus(corpus_csv).texts
     counts = CountVectorizer(ngram_range=(1, 2), min_df=2).fit_transform(texts)
-    assert abs(store.matrix("data")[0] - TfidfTransformer().fit_transform(counts)).max() < 1e-12
+    assert abs(in_file_order(store)[0] - TfidfTransformer().fit_transform(counts)).max() < 1e-12
     hashed = featurize(corpus_csv, tmp_path / "h", dev_fraction=0, shard_rows=11,
                        featurizer=FeaturizerConfig(hash_space=2**10, min_df=1, weighting="count", normalize=False))
     ref = HashingVectorizer(n_features=2**10, ngram_range=(1, 2), alternate_sign=False, norm=None).transform(texts)
-    assert abs(hashed.matrix("data")[0] - ref).max() == 0
+    assert abs(in_file_order(hashed)[0] - ref).max() == 0
 
 
 def test_streamed_split_is_the_in_memory_split():
