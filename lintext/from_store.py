@@ -206,13 +206,15 @@ def scored_shards(model, data, need_labels: bool):
 
 
 def store_scores(model, data) -> tuple[np.ndarray, np.ndarray]:
-    """True label indices and scores of every row of a store (for :func:`lintext.pipeline.evaluate`; the
-    scores of all rows are held, as for a file)."""
-    truth, scores = [], []
-    for _, part_scores, y in scored_shards(model, data, need_labels=True):
+    """True label indices and scores of every row of a store, in file order (for
+    :func:`lintext.pipeline.evaluate`; the scores of all rows are held, as for a file)."""
+    records, truth, scores = [], [], []
+    for numbers, part_scores, y in scored_shards(model, data, need_labels=True):
+        records.append(numbers)
         truth.append(y)
         scores.append(part_scores)
-    return np.concatenate(truth), np.vstack(scores)
+    order = np.argsort(np.concatenate(records), kind="stable")  # file order: the sums as from the file
+    return np.concatenate(truth)[order], np.vstack(scores)[order]
 
 
 class _DevRows:
