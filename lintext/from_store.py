@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
+from . import confidence
 from .engine.shards import RowShards
 from .errors import ConfigError, InputError
 from .evidence import rare_columns, training_extras
@@ -205,16 +206,36 @@ def scored_shards(model, data, need_labels: bool):
             yield np.asarray(shard.records), model.matrix_scores(shard.X), truth
 
 
-def store_scores(model, data) -> tuple[np.ndarray, np.ndarray]:
-    """True label indices and scores of every row of a store, in file order (for
-    :func:`lintext.pipeline.evaluate`; the scores of all rows are held, as for a file)."""
-    records, truth, scores = [], [], []
-    for numbers, part_scores, y in scored_shards(model, data, need_labels=True):
+def store_evaluation(model, data):
+    """What :func:`lintext.pipeline.evaluate` needs of a store, shard by shard, holding a few numbers per row
+    (not its scores): true and predicted label indices, and the confidence summaries (plain softmax and the
+    model's own probabilities, as :func:`lintext.confidence.summary` gives them), all in file order so
+    that the sums are those of the same rows read from the file."""
+    temperatures = list(dict.fromkeys([1.0] + ([model.temperature] if model.calibration is not None else [])))
+    records, truth, predicted, conf, nll = [], [], [], {t: [] for t in temperatures}, {t: [] for t in temperatures}
+    for numbers, scores, y in scored_shards(model, data, need_labels=True):
         records.append(numbers)
         truth.append(y)
-        scores.append(part_scores)
-    order = np.argsort(np.concatenate(records), kind="stable")  # file order: the sums as from the file
-    return np.concatenate(truth)[order], np.vstack(scores)[order]
+        best = scores.argmax(axis=1)
+        predicted.append(best)
+        for t in temperatures:
+            logp = confidence.log_softmax(scores, t)
+            conf[t].append(np.exp(logp[np.arange(len(y)), best]))
+            nll[t].append(-logp[np.arange(len(y)), y])
+        del scores
+    order = np.argsort(np.concatenate(records), kind="stable")
+    y_true, y_pred = np.concatenate(truth)[order], np.concatenate(predicted)[order]
+    correct = y_pred == y_true
+    summaries = {}
+    for t in temperatures:
+        c = np.concatenate(conf[t])[order]
+        table = confidence.reliability(c, correct)
+        summaries[t] = {"ece": confidence.ece_of(table), "nll": float(np.concatenate(nll[t])[order].mean()),
+                        "reliability": table, "coverage": confidence.coverage_curve(c, correct), "confidence": c,
+                        "correct": correct}
+    plain = summaries[1.0]
+    own = summaries[model.temperature] if model.calibration is not None else plain if model.has_probabilities else None
+    return y_true, y_pred, plain, own
 
 
 class _DevRows:
@@ -240,21 +261,26 @@ class _Asked(dict):
         return ""
 
 
+def dev_sample(dev: StorePart, labels: list[str]):
+    """``(X, y)`` of the first shard of a store's dev part: all of it when it is one shard, else a random
+    sample of ``shard_rows`` rows (rows are dealt to shards at random), so that fitting the temperature and
+    finding the dev errors hold a bounded number of rows' scores."""
+    return ShardLoader(dev.store.path, dev.part, labels)(0)
+
+
 def store_dev_errors(model, dev: StorePart, X_dev, y_dev) -> dict:
-    """:func:`lintext.explanation.dev_errors` for a store's dev part (``X_dev``, ``y_dev``: its rows
-    stacked in file order, label indices of the model's labels): a first pass finds the errors it
-    shows, their texts are read back from the source, and a second pass writes their snippets."""
+    """:func:`lintext.explanation.dev_errors` over the first shard of a store's dev part (``X_dev``, ``y_dev``:
+    :func:`dev_sample`): a first pass finds the errors it shows, their texts are read back from the source,
+    and a second pass writes their snippets."""
     store, part = dev.store, dev.part
-    records = np.concatenate([np.asarray(store.load_shard(part, k).records) for k in range(len(store.shards(part)))])
-    order = np.argsort(records, kind="stable")
-    sources = sum((store.sources(part, k) for k in range(len(store.shards(part)))), [])
-    sources = [sources[i] for i in order.tolist()]
+    records = np.asarray(store.load_shard(part, 0).records)
+    sources = store.sources(part, 0)
     texts = _Asked()
     dev_errors(model, _DevRows(y_dev, sources, texts), X_dev)
     asked = sorted(texts.asked)
     source = "dev" if store.meta.get("split", {}).get("dev") == "file" else "data"
-    found = _texts_by_record(store, {int(records[order[i]]) for i in asked}, source)
-    return dev_errors(model, _DevRows(y_dev, sources, {i: found[int(records[order[i]])] for i in asked}), X_dev)
+    found = _texts_by_record(store, {int(records[i]) for i in asked}, source)
+    return dev_errors(model, _DevRows(y_dev, sources, {i: found[int(records[i])] for i in asked}), X_dev)
 
 
 def store_score_rows(model, data):

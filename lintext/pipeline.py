@@ -202,11 +202,15 @@ def build_model(
 def finish_with_dev(model: Model, prep: PreparedData) -> None:
     """After training, while the dev set is at hand: fit the temperature on it
     (:func:`lintext.confidence.calibration_record`), record its most confident errors
-    (:func:`lintext.explanation.dev_errors`) and its metrics. Nothing without a dev set."""
+    (:func:`lintext.explanation.dev_errors`) and its metrics. Nothing without a dev set.
+    A feature store's dev part of several shards gives the temperature and the errors of its first
+    shard, a random sample of ``--shard-rows`` rows (:func:`lintext.from_store.dev_sample`), and its
+    metrics over every row, computed shard by shard."""
     if prep.dev_set is None:
         return
-    # a store's dev part of several shards: stacked in file order for these (it is a tenth of the data)
-    X_dev, y_dev = stacked(prep.X_dev) if prep.y_dev is None else (prep.X_dev, prep.y_dev)
+    X_dev, y_dev = prep.X_dev, prep.y_dev
+    if isinstance(prep.dev_set, StorePart):  # its first shard: all of it, or a random sample (bounded memory)
+        X_dev, y_dev = dev_sample(prep.dev_set, prep.labels)
     model.calibration = confidence.calibration_record(model.matrix_scores(X_dev), y_dev)
     if isinstance(prep.dev_set, StorePart):
         model.info["dev_errors"] = store_dev_errors(model, prep.dev_set, X_dev, y_dev)

@@ -229,9 +229,9 @@ class DealingWriter:
 
 def shard_writer(folder: Path, part: str, rows: int, shard_rows: int, seed: int):
     """The writer of a part of ``rows`` rows: a :class:`DealingWriter` (random shards, seeded) when it
-    takes more than one shard of the ``data`` part, else a :class:`ShardWriter` (one shard, file order)."""
-    if part == "data" and rows > shard_rows:
-        deal = np.random.default_rng([int(seed), 1]).permutation(rows) // shard_rows
+    takes more than one shard, else a :class:`ShardWriter` (one shard, file order)."""
+    if rows > shard_rows:
+        deal = np.random.default_rng([int(seed), 1 if part == "data" else 2]).permutation(rows) // shard_rows
         return DealingWriter(folder, part, deal)
     return ShardWriter(folder, part, shard_rows)
 

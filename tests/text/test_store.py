@@ -65,10 +65,10 @@ def test_store_round_trips_to_the_matrix_of_the_in_memory_featurizer(corpus_csv,
     store = featurize(corpus_csv, tmp_path / "store", featurizer=config, shard_rows=shard_rows, seed=3)
     prepared = prepare_data(corpus_csv, featurizer=config, seed=3)
     X, y = store.matrix("data")
-    X_dev, y_dev = store.matrix("dev")
+    X_dev, y_dev = in_file_order(store, "dev")
     records = np.concatenate([store.load_shard("data", k).records for k in range(len(store.shards("data")))])
-    in_file_order = np.argsort(records)  # several shards: rows dealt to shards at random, each in file order
-    X, y = X[in_file_order], y[in_file_order]
+    order = np.argsort(records)  # several shards: rows dealt to shards at random, each in file order
+    X, y = X[order], y[order]
     assert same_matrix(X, prepared.X) and same_matrix(X_dev, prepared.X_dev)
     assert np.array_equal(y, prepared.y) and np.array_equal(y_dev, prepared.y_dev) and store.labels == prepared.labels
     feat, ref = store.featurizer, prepared.featurizer
@@ -80,9 +80,9 @@ def test_store_round_trips_to_the_matrix_of_the_in_memory_featurizer(corpus_csv,
         first = store.load_shard("data", 0).records
         assert first.tolist() != list(range(7)) and np.all(np.diff(first) > 0)
     # Source positions: each row's record number and "file:line" (header on line 1, record k on line k + 2).
-    assert records[in_file_order].tolist() == [int(s.rsplit(":", 1)[1]) - 2 for s in prepared.train_set.sources]
+    assert records[order].tolist() == [int(s.rsplit(":", 1)[1]) - 2 for s in prepared.train_set.sources]
     sources = sum((store.sources("data", k) for k in range(len(store.shards("data")))), [])
-    assert [sources[i] for i in in_file_order] == prepared.train_set.sources
+    assert [sources[i] for i in order] == prepared.train_set.sources
 
 
 def test_store_matches_scikit_learn_vectorizers(corpus_csv, tmp_path):
