@@ -49,13 +49,15 @@ from .monitor import Monitor, TrainResult, history_row, suggest_learning_rate
 from .optimizers import kernel_hyperparameters
 from .options import TrainOptions
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
+from .resume import restore, snapshot
 from .shards import RowShards, epoch_pieces, shard_dev_scores
 
 DIVERGENCE_FACTOR = 1e3
 
 
 def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | None = None,
-        progress: Callable[[dict], None] | None = None) -> TrainResult:
+        progress: Callable[[dict], None] | None = None, resume: dict | None = None,
+        keep_checkpoint: bool = False) -> TrainResult:
     """Train a linear classifier on sparse features.
 
     Parameters
@@ -73,6 +75,9 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
     options : TrainOptions, optional
     progress : callable, optional
         Called after each epoch with the history row plus ``epochs`` (the most epochs).
+    resume, keep_checkpoint : optional
+        Go on from the ``checkpoint`` of an earlier result of the same data and options with fewer
+        ``epochs``; keep one in the result (:mod:`lintext.engine.resume`; not for L-BFGS).
 
     Returns
     -------
@@ -108,13 +113,13 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
             X_dev = y_dev = None
     if options.optimizer == "lbfgs":
         return fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
-    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress)
+    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, resume, keep_checkpoint)
 
 
 # --------------------------------------------------------------------------- stochastic rules
 
 
-def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
+def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, resume=None, keep_checkpoint=False):
     dtype = np.dtype(options.precision)
     n, n_features = X.shape
     # float32: converted once, here (shards: as each is read)
@@ -141,7 +146,9 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
     zero_model_loss = math.log(n_labels) if options.loss == "softmax" else 1.0
     reference_loss = zero_model_loss
     last_lr = lr
-    for epoch in range(1, options.epochs + 1):
+    if resume is not None:  # go on where an earlier run of these options stopped (engine/resume.py)
+        lr, best_params, best_epoch, history, reference_loss, last_lr = restore(resume, params, state, rng, monitor)
+    for epoch in range(len(history) + 1, options.epochs + 1):
         started = time.perf_counter()
         loss_sum, finite = 0.0, True
         # One piece in memory; one per shard for RowShards (engine/shards.py: how they are shuffled).
@@ -185,6 +192,9 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
         if options.schedule == "plateau":
             lr = plateau_update(lr, improved, options.plateau_factor)
 
+    checkpoint = None
+    if keep_checkpoint and not stopped_early:
+        checkpoint = snapshot(params, state, rng, lr, monitor, best_params, best_epoch, history, reference_loss, last_lr)
     kernels.flush(params, state, optimizer_code=code, beta1=hyper["beta1"], beta2=hyper["beta2"],
                   rho=hyper["rho"], threads=threads)
     if early_stopping and best_params is not None:
@@ -193,7 +203,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress):
         best_epoch = len(history)
     stats = _feature_stats(rule, state, code, last_lr, n_features)
     return TrainResult(np.ascontiguousarray(params[:-1]), params[-1].copy(), history, best_epoch,
-                       stopped_early, stats, options)
+                       stopped_early, stats, options, checkpoint)
 
 
 def _feature_stats(rule, state, code, lr, n_features, block=1 << 14) -> dict:

@@ -77,13 +77,14 @@ def workers_share(client, folder: str, store_json: str | None) -> bool:
     return True
 
 
-def cluster_task(topic: str, run_data: RunData, index: int, options, n_labels: int, epochs, save_to, arrays=None):
+def cluster_task(topic: str, run_data: RunData, index: int, options, n_labels: int, epochs, save_to, arrays=None,
+                 resume=None):
     """One run on a worker: log its start (``topic``), then :func:`train_run` with one numba thread."""
     import distributed
 
     worker = distributed.get_worker()
     worker.log_event(topic, {"run": index, "epochs": epochs, "worker": worker.address, "pid": os.getpid()})
-    return train_run(run_data, index, options, n_labels, epochs, save_to, arrays, threads=1)
+    return train_run(run_data, index, options, n_labels, epochs, save_to, arrays, threads=1, resume=resume)
 
 
 class ClusterRunner:
@@ -109,20 +110,20 @@ class ClusterRunner:
     def __call__(self, tasks):
         distributed = distributed_module()
         futures, keys = [], []
-        for index, options, epochs in tasks:
+        for index, options, epochs, resume in tasks:
             keys.append((index, epochs))
             self.last_task[index] = (index, epochs)
             futures.append(self.client.submit(
                 cluster_task, self.topic, self.run_data, index, options, self.n_labels, epochs,
-                self.run_data.folder if self.shared else None, self.arrays, pure=False,
+                self.run_data.folder if self.shared else None, self.arrays, resume, pure=False,
                 key=f"lintext-run-{index}-{epochs}-{uuid.uuid4().hex[:8]}"))
         finished = set()
         for future in distributed.as_completed(futures, loop=self.client.loop):
-            row, history, weights = future.result()
+            row, history, weights, checkpoint = future.result()
             future.release()
             finished.add(keys[futures.index(future)])
             running = sum(1 for k in keys if k not in finished and self.started[k] > 0)
-            yield row, history, weights
+            yield row, history, weights, checkpoint
             self.report({"stage": "cluster", "finished": len(finished), "running": running,
                          "queued": len(keys) - len(finished) - running, "total": len(keys), "row": row})
 
@@ -131,7 +132,7 @@ class ClusterRunner:
         starts = Counter()
         for _, message in self.client.get_events(self.topic):
             starts[(message["run"], message["epochs"])] += 1
-        for index, (row, _, _) in results.items():
+        for index, (row, *_) in results.items():
             row["attempts"] = max(1, starts[self.last_task[index]])
 
     def close(self) -> None:

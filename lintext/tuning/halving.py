@@ -12,11 +12,11 @@ rung for all ``R``.
 
 Choices of lintext:
 
-* The budget is in epochs, and a run promoted to a larger budget trains again from its start with
-  that budget (the same seed gives the same first epochs, so its history up to the smaller budget
-  is the one it had): no state travels between rungs, so each rung's runs are independent tasks
-  that run anywhere (local processes or a Dask cluster), and the last rung's runs are exactly the
-  full grid's runs of those configurations (same weights).
+* The budget is in epochs, and a run promoted to a larger budget goes on from a checkpoint of its
+  epoch loop (:mod:`lintext.engine.resume`: weights, optimizer state, the shuffling generator, the
+  early-stopping monitor), sent with its task, so each rung's runs are independent tasks that run
+  anywhere (local processes or a Dask cluster), and a run that reaches the full budget is exactly
+  the full grid's run of that configuration (same history, same weights, bit for bit).
 * A run ranks by its stop metric at its best epoch so far (ties: grid order); a diverged run never
   goes on. A run that stopped early (patience) inside its budget is final: it keeps its status and,
   when it ranks among the best, its place, without further training.
@@ -56,22 +56,26 @@ def successive_halving(grid, run: Callable[[list], Iterable], stop_metric: str, 
                        report: Callable[[dict], None], order_key=None):
     """Run the bracket over ``grid`` (TrainOptions of each run).
 
-    ``run(tasks)`` trains ``(index, options, epochs)`` tasks and yields ``(row, history, weights)`` as they
-    finish. Returns ``(results, rungs)``: ``results[index]`` is the run's last ``(row, history, weights)``
-    (rows of pruned runs say so), ``rungs`` the bracket as run: per rung its epochs and runs trained.
+    ``run(tasks)`` trains ``(index, options, epochs, checkpoint)`` tasks and yields ``(row, history, weights,
+    checkpoint)`` as they finish. Returns ``(results, rungs)``: ``results[index]`` is the run's last
+    ``(row, history, weights)`` (rows of pruned runs say so), ``rungs`` the bracket as run: per rung its
+    epochs and runs trained.
     """
     epochs = grid[0].epochs
     bracket = halving_budgets(len(grid), epochs, factor)
     results: dict[int, tuple] = {}
+    checkpoints: dict[int, dict] = {}
     alive = list(range(len(grid)))
     rungs = []
     for level, (keep_next, budget) in enumerate(bracket):
         train = [i for i in alive if i not in results or results[i][0]["status"] == BUDGET_USED]
-        tasks = sorted(((i, grid[i], budget) for i in train), key=order_key or (lambda t: t[0]))
+        tasks = sorted(((i, grid[i], budget, checkpoints.pop(i, None)) for i in train), key=order_key or (lambda t: t[0]))
         rungs.append({"epochs": budget, "runs": [t[0] for t in tasks], "configurations": len(alive)})
         done = 0
-        for row, history, weights in run(tasks):
+        for row, history, weights, checkpoint in run(tasks):
             results[row["run"]] = (row, history, weights)
+            if checkpoint is not None:
+                checkpoints[row["run"]] = checkpoint
             done += 1
             report({"stage": "run", "done": done, "total": len(tasks), "row": row, "rung": level + 1,
                     "rungs": len(bracket), "epochs": budget})
@@ -86,6 +90,7 @@ def successive_halving(grid, run: Callable[[list], Iterable], stop_metric: str, 
                 row, history, _ = results[i]
                 results[i] = ({**row, "status": pruned(row["epochs_run"])}, history, None)
         alive = going_on
+        checkpoints = {i: c for i, c in checkpoints.items() if i in alive}  # the pruned runs' are dropped
     for i, (row, history, weights) in results.items():  # the last rung ran every survivor to the end
         if row["status"] == BUDGET_USED:
             results[i] = ({**row, "status": pruned(row["epochs_run"])}, history, None)

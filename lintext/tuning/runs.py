@@ -131,28 +131,35 @@ def _open_some(folder: Path, shapes: dict, train: bool, dev: bool):
 
 
 def train_run(data: RunData, index: int, options: TrainOptions, n_labels: int, epochs: int | None = None,
-              save_to: str | None = None, arrays: dict | None = None, threads: int | None = None):
-    """Train run ``index``; returns ``(row, history, weights)``.
+              save_to: str | None = None, arrays: dict | None = None, threads: int | None = None,
+              resume: dict | None = None):
+    """Train run ``index``; returns ``(row, history, weights, checkpoint)``.
 
     ``epochs``: a budget below ``options.epochs`` (successive halving); a run that uses all of it
-    without stopping early has the status ``finished at budget`` until the sweep prunes or promotes
-    it. ``save_to``: write the weights to ``save_to/run-<index>.npz`` and return ``None`` for them.
-    ``threads``: numba threads of this run (a cluster worker's share; the weights do not depend on it).
+    without stopping early has the status ``finished at budget`` and a ``checkpoint`` to go on from
+    (``resume``; :mod:`lintext.engine.resume`) until the sweep prunes or promotes it; its row's
+    times then add up over the budgets. ``save_to``: write the weights to ``save_to/run-<index>.npz``
+    and return ``None`` for them. ``threads``: numba threads of this run (a cluster worker's share;
+    the weights do not depend on it).
     """
     X, y, X_dev, y_dev = data.open(arrays)
-    seen: list[dict] = []
+    seen: list[dict] = list(resume["history"]) if resume is not None else []
     budget = options.epochs if epochs is None else min(int(epochs), options.epochs)
     trained = replace(options, epochs=budget, threads=options.threads if threads is None else threads)
-    started, cpu = time.perf_counter(), time.process_time()
+    earlier = (resume or {}).get("times", (0.0, 0.0))
+    started, cpu = time.perf_counter() - earlier[0], time.process_time() - earlier[1]
     try:
-        result = fit(X, y, n_labels, X_dev, y_dev, trained,
+        result = fit(X, y, n_labels, X_dev, y_dev, trained, resume=resume, keep_checkpoint=budget < options.epochs,
                      progress=lambda row: seen.append({k: v for k, v in row.items() if k != "epochs"}))
     except DivergenceError as exc:
         return run_row(index, options, seen, None, f"diverged at epoch {exc.epoch}", time.perf_counter() - started,
-                       time.process_time() - cpu, diverged_epoch=exc.epoch), seen, None
+                       time.process_time() - cpu, diverged_epoch=exc.epoch), seen, None, None
     except LinTextError as exc:  # re-raised with a message only: typed errors need not unpickle
         raise LinTextError(str(exc)) from None
     seconds, cpu = time.perf_counter() - started, time.process_time() - cpu
+    checkpoint = result.checkpoint
+    if checkpoint is not None:
+        checkpoint["times"] = (seconds, cpu)
     weights = {"coef": result.coef, "intercept": result.intercept,
                **{f"stat_{k}": v for k, v in result.feature_stats.items()}}
     if result.stopped_early:
@@ -163,7 +170,7 @@ def train_run(data: RunData, index: int, options: TrainOptions, n_labels: int, e
     if save_to is not None:
         np.savez(Path(save_to) / f"run-{index}.npz", **weights)
         weights = None
-    return row, result.history, weights
+    return row, result.history, weights, checkpoint
 
 
 BUDGET_USED = "finished at budget"  # a halving run that used its whole budget: pruned or promoted next

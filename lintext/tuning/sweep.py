@@ -226,9 +226,9 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
             # early and the short ones fill the gaps at the end (longest-first scheduling).
             first = lambda task: (task[1].learning_rate, task[0])  # noqa: E731
             if halving is None:
-                tasks = sorted(((i, grid[i], None) for i in range(len(grid))), key=first)
+                tasks = sorted(((i, grid[i], None, None) for i in range(len(grid))), key=first)
                 results = {}
-                for row, history, weights in runner(tasks):
+                for row, history, weights, _ in runner(tasks):
                     results[row["run"]] = (row, history, weights)
                     report({"stage": "run", "done": len(results), "total": len(grid), "row": row})
                 rungs = None
@@ -284,7 +284,8 @@ def local_runner(run_data: RunData, n_labels: int, jobs: int, folder: str):
     """``runner(tasks)``: runs in ``jobs`` local processes (joblib's loky), one numba thread each, weights
     saved to ``folder``; yields results as they finish."""
     def run(tasks):
-        calls = (delayed(train_run)(run_data, i, options, n_labels, epochs, folder) for i, options, epochs in tasks)
+        calls = (delayed(train_run)(run_data, i, options, n_labels, epochs, folder, resume=resume)
+                 for i, options, epochs, resume in tasks)
         try:
             with parallel_config(backend="loky", inner_max_num_threads=1):
                 yield from Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(calls)
