@@ -303,7 +303,7 @@ def is_store_data(data) -> bool:
 
 def featurize(data, out, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
               featurizer_from=None, seed: int = 0, reader: ReaderOptions | None = None, shard_rows: int = SHARD_ROWS,
-              n_jobs: int = 1, map_chunks=None, progress=None) -> FeatureStore:
+              n_jobs: int = 1, map_chunks=None, progress=None, force: bool = False) -> FeatureStore:
     """Write the feature store of ``data`` to ``out`` (``lintext featurize``); returns it opened.
 
     ``featurizer_from``: a model directory or a store whose fitted featurizer transforms ``data``
@@ -321,4 +321,5 @@ def featurize(data, out, dev=None, dev_fraction: float = 0.1, featurizer: Featur
     if isinstance(featurizer, dict):
         featurizer = FeaturizerConfig(**featurizer)
     return featurize_store(data, out, dev=dev, dev_fraction=dev_fraction, seed=seed, featurizer=featurizer, fitted=fitted,
-                           reader=reader, shard_rows=shard_rows, n_jobs=n_jobs, map_chunks=map_chunks, progress=progress)
+                           reader=reader, shard_rows=shard_rows, n_jobs=n_jobs, map_chunks=map_chunks, progress=progress,
+                           force=force)

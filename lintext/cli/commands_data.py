@@ -13,7 +13,7 @@ from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
 from .app import command, out, show_progress, status
 from .display import Display
-from .options import (ClusterOpt, DataPath, DevFractionOpt, DevOpt, JobsOpt, QuietOpt, featurizer_options,
+from .options import (ClusterOpt, DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, featurizer_options,
                       reader_options)
 
 SHARD_ROWS_DEFAULT = 100_000  # lintext.text.streaming.SHARD_ROWS (not imported: --help loads no library)
@@ -74,6 +74,7 @@ def featurize(
     reader: ReaderOptions = None,
     featurizer: FeaturizerConfig = None,
     jobs: JobsOpt = 1,
+    force: ForceOpt = False,
     quiet: QuietOpt = False,
 ):
     """Featurize labelled data once into a feature store that train, sweep, probe, evaluate and predict read as DATA.
@@ -85,16 +86,18 @@ def featurize(
     Example: lintext featurize data/demo/train.csv --dev data/demo/dev.csv --out stores/demo
     """
     from ..from_store import featurize as write_store
+    from ..outputs import check_output_folder
     from ..tuning.cluster import featurize_mapper
 
     if featurizer is not None and featurizer_from is not None:
         raise ConfigError("--featurizer-from", str(featurizer_from), "takes the featurizer as fitted; drop the featurizer options")
+    check_output_folder(out_dir, "store", force, inputs=[data, dev, featurizer_from])
     display = Display(show_progress(quiet))
     try:
         with featurize_mapper(cluster, featurizer) as mapper:
             store = write_store(data, out_dir, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer,
                                 featurizer_from=featurizer_from, seed=seed, reader=reader, shard_rows=shard_rows,
-                                n_jobs=jobs, map_chunks=mapper, progress=display)
+                                n_jobs=jobs, map_chunks=mapper, progress=display, force=force)
     finally:
         display.close()
     parts = ", ".join(f"{name} {store.rows(name):,} rows in {len(store.shards(name))} shard(s)"

@@ -159,7 +159,7 @@ def count_hashed_chunk(chunk: Chunk, config: FeaturizerConfig) -> tuple[sp.csr_m
 def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 0,
                     featurizer: FeaturizerConfig | None = None, fitted: Featurizer | None = None,
                     reader: ReaderOptions | None = None, shard_rows: int = SHARD_ROWS, n_jobs: int = 1,
-                    map_chunks: Callable | None = None, progress: Callable[[dict], None] | None = None):
+                    map_chunks: Callable | None = None, force: bool = False, progress: Callable[[dict], None] | None = None):
     """Featurize ``data`` (and ``dev``) into a feature store at ``out``; see the module docstring.
 
     Parameters
@@ -172,6 +172,7 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
     n_jobs : processes for featurizing each chunk.
     map_chunks : ``map_chunks(function, chunks)`` yields ``function(chunk)`` in order (hashing mode's
         counting); the default runs in this process.
+    force : replace ``out`` even when lintext did not write it (:func:`lintext.files.atomic_directory`).
     progress : receives ``{"stage": "featurize", "step", "documents", "total", "per_second"}`` per chunk.
     """
     if isinstance(shard_rows, bool) or not isinstance(shard_rows, int) or shard_rows < 1:
@@ -242,7 +243,7 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
         reader_json = {"format": reader.format, "text_column": reader.text_column, "label_column": reader.label_column}
         write_store_json(tmp, feat, names, parts, sources, reader_json, split | {"fitted": fitted is None})
 
-    return open_store(atomic_directory(Path(out), fill))
+    return open_store(atomic_directory(Path(out), fill, kind="store", force=force))
 
 
 def _check_dev_labels(dev, reader, dev_names, names):

@@ -251,6 +251,21 @@ def test_probe_reads_a_sharded_store_as_the_file(small_split, tmp_path):
     from lintext.tuning.probe import probe
 
     featurize(small_split["train"], tmp_path / "s", dev=small_split["dev"], shard_rows=40)
-    from_store = probe(tmp_path / "s", steps=30)
-    from_file = probe(small_split["train"], dev=small_split["dev"], steps=30)
-    assert np.array_equal(from_store.losses, from_file.losses) and from_store.suggestion == from_file.suggestion
+    from_store = probe(tmp_path / "s", steps_per_rung=10)
+    from_file = probe(small_split["train"], dev=small_split["dev"], steps_per_rung=10)
+    assert np.array_equal(from_store.mean_losses, from_file.mean_losses) and from_store.verdict == from_file.verdict
+
+
+def test_featurize_replaces_only_a_store(small_split, tmp_path):
+    # The output rules of every lintext folder (lintext.outputs): a store replaces a store, never a
+    # folder lintext did not write (unless --force), and its marker names the kind "store".
+    import json
+
+    assert run("featurize", small_split["train"], "--out", tmp_path / "s", "-q").exit_code == 0
+    assert json.loads((tmp_path / "s" / ".lintext.json").read_text())["kind"] == "store"
+    assert run("featurize", small_split["train"], "--out", tmp_path / "s", "-q").exit_code == 0
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("keep me")
+    refused = run("featurize", small_split["train"], "--out", tmp_path / "mine", "-q")
+    assert refused.exit_code == 2 and len(refused.output.strip().splitlines()) == 1
+    assert (tmp_path / "mine" / "notes.txt").read_text() == "keep me"
