@@ -206,36 +206,65 @@ def scored_shards(model, data, need_labels: bool):
             yield np.asarray(shard.records), model.matrix_scores(shard.X), truth
 
 
-def store_evaluation(model, data):
+def store_evaluation(model, data, unknown_labels: str = "count"):
     """What :func:`lintext.pipeline.evaluate` needs of a store, shard by shard, holding a few numbers per row
-    (not its scores): true and predicted label indices, and the confidence summaries (plain softmax and the
-    model's own probabilities, as :func:`lintext.confidence.summary` gives them), all in file order so
-    that the sums are those of the same rows read from the file."""
+    (not its scores), in file order so that the sums are those of the same rows read from the file.
+
+    Returns ``(y_true, y_pred, names, unknown_counts, (plain, own))``: label indices into ``names``
+    (the model's labels, then the unknown ones unless ``unknown_labels`` is ``"skip"``, which drops
+    their rows), the count of each unknown label, and the confidence summaries of the rows with a
+    known label (plain softmax and the model's own probabilities, as :func:`lintext.confidence.summary`
+    gives them; ``None`` when no row has one).
+    """
+    store, parts = opened(data, model)
     temperatures = list(dict.fromkeys([1.0] + ([model.temperature] if model.calibration is not None else [])))
-    records, truth, predicted, conf, nll = [], [], [], {t: [] for t in temperatures}, {t: [] for t in temperatures}
-    for numbers, scores, y in scored_shards(model, data, need_labels=True):
-        records.append(numbers)
-        truth.append(y)
-        best = scores.argmax(axis=1)
-        predicted.append(best)
-        for t in temperatures:
-            logp = confidence.log_softmax(scores, t)
-            conf[t].append(np.exp(logp[np.arange(len(y)), best]))
-            nll[t].append(-logp[np.arange(len(y)), y])
-        del scores
+    index = {name: j for j, name in enumerate(model.labels)}
+    known_of = np.array([index.get(name, -1) for name in store.labels] + [-1], dtype=np.int64)
+    records, ids, predicted = [], [], []
+    conf, nll = {t: [] for t in temperatures}, {t: [] for t in temperatures}
+    for part in parts:
+        for k in range(len(store.shards(part))):
+            shard = store.load_shard(part, k)
+            labels = np.asarray(shard.labels, dtype=np.int64)
+            if (labels < 0).any():
+                raise InputError(store.sources(part, k)[int(np.flatnonzero(labels < 0)[0])],
+                                 "no label (the store was written from unlabelled data)")
+            scores = model.matrix_scores(shard.X)
+            best = scores.argmax(axis=1)
+            truth = np.maximum(known_of[labels], 0)  # unknown labels: any column; their rows are left out below
+            for t in temperatures:
+                logp = confidence.log_softmax(scores, t)
+                conf[t].append(np.exp(logp[np.arange(len(best)), best]))
+                nll[t].append(-logp[np.arange(len(best)), truth])
+            records.append(np.asarray(shard.records))
+            ids.append(labels)
+            predicted.append(best)
+            del scores
     order = np.argsort(np.concatenate(records), kind="stable")
-    y_true, y_pred = np.concatenate(truth)[order], np.concatenate(predicted)[order]
-    correct = y_pred == y_true
+    ids, y_pred = np.concatenate(ids)[order], np.concatenate(predicted)[order]
+    known = known_of[ids] >= 0
+    unknown_counts = {store.labels[i]: int(n) for i, n in enumerate(np.bincount(ids[~known], minlength=len(store.labels)))
+                      if n}
+    keep = known if unknown_labels == "skip" else np.ones(len(ids), dtype=bool)
+    if not keep.any():
+        raise InputError(store.path, f"no document has a label the model knows (the model's labels: {', '.join(model.labels)})")
+    names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
+    code = np.array([names.index(name) if name in names else -1 for name in store.labels], dtype=np.int64)
+    y_true, y_pred = code[ids[keep]], y_pred[keep]
+    rows = known[keep]
     summaries = {}
     for t in temperatures:
-        c = np.concatenate(conf[t])[order]
-        table = confidence.reliability(c, correct)
-        summaries[t] = {"ece": confidence.ece_of(table), "nll": float(np.concatenate(nll[t])[order].mean()),
-                        "reliability": table, "coverage": confidence.coverage_curve(c, correct), "confidence": c,
-                        "correct": correct}
+        c = np.concatenate(conf[t])[order][keep][rows]
+        right = y_pred[rows] == y_true[rows]
+        table = confidence.reliability(c, right)
+        summaries[t] = {"ece": confidence.ece_of(table), "nll": float(np.concatenate(nll[t])[order][keep][rows].mean()),
+                        "reliability": table, "coverage": confidence.coverage_curve(c, right), "confidence": c,
+                        "correct": right}
+    if not rows.any():
+        return y_true, y_pred, names, unknown_counts, (None, None)
     plain = summaries[1.0]
     own = summaries[model.temperature] if model.calibration is not None else plain if model.has_probabilities else None
-    return y_true, y_pred, plain, own
+    return y_true, y_pred, names, unknown_counts, (plain, own)
 
 
 class _DevRows:

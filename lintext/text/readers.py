@@ -183,10 +183,8 @@ def iter_records(
     if not p.exists():
         raise InputError(p, "no such file or folder")
     if fmt == "folder":
-        if not p.is_dir():
-            raise InputError(p, "not a folder")
-        if (p / "store.json").is_file():  # lintext.text.store.STORE_FILE
-            raise InputError(p, "is a feature store (lintext featurize), not labelled files; this command reads the files")
+        if not p.is_dir() or (p / "store.json").is_file():  # store.json: a feature store (lintext.text.store)
+            raise InputError(p, "is a feature store (lintext featurize), not labelled files" if p.is_dir() else "not a folder")
         return _iter_folder(p)
     if p.is_dir():
         raise InputError(p, f"is a folder, not a {fmt} file")
