@@ -20,8 +20,20 @@ RARE_DF = 2
 SNIPPET_CHARS = 160
 
 
+def rare_columns(model, top_rare: int = 30, rare_df: int = RARE_DF) -> tuple[np.ndarray, dict]:
+    """The ``top_rare`` columns with ``1 <= df <= rare_df`` and the largest centred weight norms (ties:
+    lower column first), and the norm of every rare column."""
+    df = np.asarray(model.featurizer.document_frequency, dtype=np.int64)
+    candidates = np.flatnonzero((df >= 1) & (df <= rare_df))
+    rows = np.asarray(model.coef[candidates], dtype=np.float64)
+    rows = rows - rows.mean(axis=1, keepdims=True)  # the mean across labels: invisible to the loss
+    norms = np.sqrt(np.einsum("ij,ij->i", rows, rows))
+    chosen = candidates[np.lexsort((candidates, -np.round(norms, 12)))][:top_rare]  # rounded: ties stay ties
+    return chosen, dict(zip(candidates.tolist(), norms.tolist()))
+
+
 def training_extras(model, train_texts, train_sources, X_train, train_labels=None, top_rare: int = 30,
-                    rare_df: int = RARE_DF, ngrams_per_column: int = 3) -> dict:
+                    rare_df: int = RARE_DF, ngrams_per_column: int = 3, hashed_texts=None) -> dict:
     """What only the training data can tell the report, as JSON-ready data.
 
     Meant to be stored as ``model.info["explain"]`` right after training.
@@ -36,6 +48,8 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
     top_rare : how many rare features (df <= ``rare_df``) with the largest weight norms to keep
         (norms of the rows with their mean across labels removed, as in the report).
     ngrams_per_column : hashing mode: how many n-grams to name per column.
+    hashed_texts : hashing mode: the texts whose n-grams name the columns (default ``train_texts``;
+        a feature store passes a bounded sample, its first shard).
 
     Returns
     -------
@@ -52,17 +66,12 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
     extras: dict = {"rare_df": int(rare_df)}
     names_by_column: dict = {}
     if feat.config.hashing:
-        extras["hashed_ngrams"] = _hashed_ngrams(feat, texts, ngrams_per_column)
+        extras["hashed_ngrams"] = _hashed_ngrams(feat, texts if hashed_texts is None else hashed_texts, ngrams_per_column)
         section = extras["hashed_ngrams"]
         names_by_column = {c: [g[0] for g in grams] for c, grams in zip(section["columns"], section["ngrams"])}
 
     df = np.asarray(feat.document_frequency, dtype=np.int64)
-    candidates = np.flatnonzero((df >= 1) & (df <= rare_df))
-    rows = np.asarray(model.coef[candidates], dtype=np.float64)
-    rows = rows - rows.mean(axis=1, keepdims=True)  # the mean across labels: invisible to the loss
-    norms = np.sqrt(np.einsum("ij,ij->i", rows, rows))
-    chosen = candidates[np.lexsort((candidates, -np.round(norms, 12)))][:top_rare]  # rounded: ties stay ties
-    norm_of = dict(zip(candidates.tolist(), norms.tolist()))
+    chosen, norm_of = rare_columns(model, top_rare, rare_df)
     X = X_train.tocsc()
     rare = []
     for j in chosen.tolist():

@@ -99,7 +99,8 @@ class Model:
         return self.matrix_scores(self.featurizer.transform(texts))
 
     def matrix_scores(self, X) -> np.ndarray:
-        """Scores of an already featurized matrix, computed in float64 from the stored weights.
+        """Scores of an already featurized matrix, computed in float64 from the stored
+        weights (a feature store's shard, too).
 
         Only the rows of ``coef`` for features present in ``X`` are read (and widened to
         float64): a few texts cost little whatever the size of the model.

@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import time
 from dataclasses import dataclass, replace
+from itertools import islice
 from typing import Callable
 
 import numpy as np
@@ -23,10 +24,13 @@ from .engine.sparsity import zero_weights
 from .errors import ConfigError, InputError
 from .evidence import training_extras
 from .explanation import dev_errors, require_calibration
+from .from_store import (StorePart, dev_sample, is_store_data, store_data, store_dev_errors, store_evaluation,
+                         store_evidence, store_score_rows)
 from .model import Model, stored_weights
 from .text.featurizer import Featurizer, FeaturizerConfig
 from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus
 from .text.split import split_dev
+from .text.store import FeatureStore
 
 # Progress callback: receives ``{"stage": ...}`` dictionaries (reading, featurizing, epoch,
 # evaluating, run, probe); the command line turns them into a display.
@@ -66,34 +70,45 @@ class PreparedData:
     y: np.ndarray
     X_dev: sp.csr_matrix | None
     y_dev: np.ndarray | None
-    train_set: Corpus
-    dev_set: Corpus | None
+    train_set: Corpus | None  # None when read from a feature store
+    dev_set: Corpus | StorePart | None
     description: dict
+    store: FeatureStore | None = None
 
     @property
     def weights(self) -> np.ndarray | None:
         """Per-document weights of the training rows (from the reader's weight column), or None."""
-        return None if self.train_set.weights is None else np.asarray(self.train_set.weights, dtype=np.float64)
+        weights = getattr(self.train_set, "weights", None)  # a feature store keeps no weights
+        return None if weights is None else np.asarray(weights, dtype=np.float64)
 
     @property
     def dev_weights(self) -> np.ndarray | None:
         """Per-document weights of the dev rows, when the dev rows have them."""
-        if self.dev_set is None or self.dev_set.weights is None:
-            return None
-        return np.asarray(self.dev_set.weights, dtype=np.float64)
+        weights = getattr(self.dev_set, "weights", None)
+        return None if weights is None else np.asarray(weights, dtype=np.float64)
 
 
 def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
                  seed: int = 0, reader: ReaderOptions | None = None, n_jobs: int = 1,
-                 progress: Progress | None = None, options: TrainOptions | None = None) -> PreparedData:
+                 progress: Progress | None = None, options: TrainOptions | None = None,
+                 stream: bool | None = None) -> PreparedData:
     """Read ``data``, hold out a dev set and featurize once.
 
     The dev set is ``dev`` when given, else a stratified ``dev_fraction`` of ``data``
     seeded by ``seed`` (none when ``dev_fraction`` is 0). ``description`` is the ``data``
     part of a model's ``info``. With ``options``, a training run that cannot fit in memory
     is refused before featurizing (hashed space) or right after (vocabulary), never midway.
+
+    ``data`` may be a feature store (``lintext featurize``): then its featurizer and its dev
+    rows are used (``dev_fraction`` does not apply; ``dev`` only for a store without dev rows),
+    ``featurizer`` must be ``None`` or the store's, and a part of several shards is read shard by
+    shard (``stream``: see :func:`lintext.from_store.store_data`).
     """
     report = progress or (lambda event: None)
+    if is_store_data(data):  # the store's featurizer and split; featurizer options must agree with it
+        report({"stage": "reading", "path": str(data)})
+        fields = store_data(data, dev, reader, None if featurizer is None else featurizer_config(featurizer), stream)
+        return PreparedData(**fields)
     fconfig = featurizer_config(featurizer)
     dev_fraction = check_dev_fraction(dev_fraction, dev)
     report({"stage": "reading", "path": str(data) if _is_path(data) else getattr(data, "path", "in-memory data")})
@@ -189,7 +204,10 @@ def build_model(
     # the weights as the model directory keeps them (float32), so the metrics below are those of the saved model
     model = Model(prep.featurizer, stored_weights(result.coef), result.intercept, prep.labels, topts.loss, info,
                   result.feature_stats)
-    model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
+    if train_set is None:
+        model.info["explain"] = store_evidence(model, prep.store)
+    else:
+        model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
     finish_with_dev(model, prep)
     if test is not None:
         report({"stage": "evaluating", "path": str(test)})
@@ -202,11 +220,20 @@ def build_model(
 def finish_with_dev(model: Model, prep: PreparedData) -> None:
     """After training, while the dev set is at hand: fit the temperature on it
     (:func:`lintext.confidence.calibration_record`), record its most confident errors
-    (:func:`lintext.explanation.dev_errors`) and its metrics. Nothing without a dev set."""
+    (:func:`lintext.explanation.dev_errors`) and its metrics. Nothing without a dev set.
+    A feature store's dev part of several shards gives the temperature and the errors of its first
+    shard, a random sample of ``--shard-rows`` rows (:func:`lintext.from_store.dev_sample`), and its
+    metrics over every row, computed shard by shard."""
     if prep.dev_set is None:
         return
-    model.calibration = confidence.calibration_record(model.matrix_scores(prep.X_dev), prep.y_dev)
-    model.info["dev_errors"] = dev_errors(model, prep.dev_set, prep.X_dev)
+    X_dev, y_dev = prep.X_dev, prep.y_dev
+    if isinstance(prep.dev_set, StorePart):  # its first shard: all of it, or a random sample (bounded memory)
+        X_dev, y_dev = dev_sample(prep.dev_set, prep.labels)
+    model.calibration = confidence.calibration_record(model.matrix_scores(X_dev), y_dev)
+    if isinstance(prep.dev_set, StorePart):
+        model.info["dev_errors"] = store_dev_errors(model, prep.dev_set, X_dev, y_dev)
+    else:
+        model.info["dev_errors"] = dev_errors(model, prep.dev_set, X_dev)
     model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
 
 
@@ -258,25 +285,28 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
     if target_accuracy is not None:
         check_probability("--target-accuracy", target_accuracy)
         require_calibration(model, "--target-accuracy")
-    if unknown_labels not in UNKNOWN_LABELS:
-        raise ConfigError("unknown_labels", unknown_labels, f"choose one of {', '.join(UNKNOWN_LABELS)}")
-    corpus = as_corpus(data, reader=reader, min_labels=1)
-    known = set(model.labels)
-    unknown_counts: dict[str, int] = {}
-    for label in corpus.labels:
-        if label not in known:
-            unknown_counts[label] = unknown_counts.get(label, 0) + 1
-    if unknown_counts and unknown_labels == "skip":
-        corpus = corpus.subset([i for i, label in enumerate(corpus.labels) if label in known])
-        if len(corpus) == 0:
-            raise InputError(corpus.path, "no document has a label the model knows "
-                             f"(the model's labels: {', '.join(model.labels)})")
-    names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
-    y_true = corpus.label_indices(names)
-    raw_scores = model.scores(corpus.texts)
-    y_pred = raw_scores.argmax(axis=1)
+    if is_store_data(data):  # featurized by the model's featurizer (checked), shard by shard, few numbers per row
+        y_true, y_pred, names, unknown_counts, (plain, own) = store_evaluation(model, data, unknown_labels)
+        empty = None  # a store keeps no texts
+    else:
+        corpus = as_corpus(data, reader=reader, min_labels=1)
+        known = set(model.labels)
+        unknown_counts: dict[str, int] = {}
+        for label in corpus.labels:
+            if label not in known:
+                unknown_counts[label] = unknown_counts.get(label, 0) + 1
+        if unknown_counts and unknown_labels == "skip":
+            corpus = corpus.subset([i for i, label in enumerate(corpus.labels) if label in known])
+            if len(corpus) == 0:
+                raise InputError(corpus.path, "no document has a label the model knows "
+                                 f"(the model's labels: {', '.join(model.labels)})")
+        names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
+        y_true = corpus.label_indices(names)
+        raw_scores = model.scores(corpus.texts)
+        y_pred = raw_scores.argmax(axis=1)
+        empty = count_empty(corpus.texts)
     counts = confusion_counts(y_true, y_pred, len(names))
-    out = {"documents": len(corpus), **summary_scores(counts)}
+    out = {"documents": len(y_true), **summary_scores(counts)}
     if summary_only:
         return out
     scores = label_scores(counts)
@@ -290,15 +320,16 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
     out["absent_labels"] = [name for j, name in enumerate(names) if not scores["present"][j]]
     out["unknown_labels"] = {"handling": "counted as errors" if unknown_labels == "count" else "skipped",
                              "documents": int(sum(unknown_counts.values())), "labels": dict(sorted(unknown_counts.items()))}
-    out["empty_texts"] = count_empty(corpus.texts)
+    out["empty_texts"] = empty
     out["labels"] = names
     out["confusion"] = counts.tolist()
     rows = y_true < len(model.labels)  # calibration needs labels the model knows
     if not rows.any():
         return out
-    plain = confidence.summary(raw_scores[rows], y_true[rows])
-    own = confidence.summary(raw_scores[rows], y_true[rows], model.temperature) if model.calibration is not None else \
-        plain if model.has_probabilities else None
+    if not is_store_data(data):
+        plain = confidence.summary(raw_scores[rows], y_true[rows])
+        own = confidence.summary(raw_scores[rows], y_true[rows], model.temperature) if model.calibration is not None else \
+            plain if model.has_probabilities else None
     out.update({
         "temperature": model.temperature,
         "ece": None if own is None else own["ece"], "ece_uncalibrated": plain["ece"],
@@ -347,18 +378,16 @@ def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 2
     counts.update(documents=0, empty_texts=0)
     yield header
     row = 0
-    chunks = iter_chunks(data, chunk_size=chunk_size, reader=reader) if _is_path(data) else \
-        [as_corpus(data, reader=reader, require_labels=False)]
-    for chunk in chunks:
-        counts["documents"] += len(chunk)
-        counts["empty_texts"] += count_empty(chunk.texts)
-        scores = model.scores(chunk.texts)
+    for chunk, numbers, scores in _scored_chunks(model, data, chunk_size, reader):
+        counts["documents"] += len(scores)
+        counts["empty_texts"] += 0 if chunk is None else count_empty(chunk.texts)
         best = np.argsort(-scores, axis=1, kind="stable")[:, :top]
         if model.has_probabilities:
             scores = model.probabilities_of(scores)
-        for i in range(len(chunk)):
+        for i in range(len(scores)):
             row += 1
-            out = [row, chunk.ids[i] if chunk.ids is not None else ""] if with_id else [row]
+            number = row if numbers is None else numbers[i] + 1
+            out = [number, chunk.ids[i] if chunk is not None and chunk.ids is not None else ""] if with_id else [number]
             for j in best[i]:
                 out += [model.labels[j], f"{scores[i, j]:.6g}"]
             if min_probability is not None:
@@ -367,6 +396,23 @@ def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 2
                     out[2 if with_id else 1] = ""
                 out.append("yes" if unsure else "no")
             yield out
+
+
+def _scored_chunks(model, data, chunk_size, reader):
+    """(chunk or None, record numbers or None, scores) of consecutive records: texts read in chunks, or a
+    store's rows (in record order)."""
+    if not is_store_data(data):
+        chunks = iter_chunks(data, chunk_size=chunk_size, reader=reader) if _is_path(data) else \
+            [as_corpus(data, reader=reader, require_labels=False)]
+        for chunk in chunks:
+            yield chunk, None, model.scores(chunk.texts)
+        return
+    rows = iter(store_score_rows(model, data))
+    while True:
+        batch = list(islice(rows, chunk_size))
+        if not batch:
+            return
+        yield None, [r for r, _ in batch], np.vstack([s for _, s in batch])
 
 
 def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels: int = 2,

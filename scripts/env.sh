@@ -1,5 +1,5 @@
 # Sourced by demo.sh and test.sh: create or reuse .venv and install lintext into it.
-# Usage: source scripts/env.sh [EXTRA]   (EXTRA: "test" installs the test extra too)
+# Usage: source scripts/env.sh [EXTRA]   (EXTRA: "test" installs the test extra too; "test,cluster" also Dask)
 set -euo pipefail
 root=$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)
 extra=${1:-}

@@ -16,7 +16,7 @@ from ..text.readers import ReaderOptions
 from ..tuning.ladder import DEFAULT_HIGHEST_RATE, DEFAULT_LOWEST_RATE, DEFAULT_STEPS_PER_RUNG
 from .app import command, out, show_progress, status
 from .display import Display, print_wide
-from .options import (DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, WeightColumnOpt,
+from .options import (ClusterOpt, DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, WeightColumnOpt,
                       featurizer_options, reader_options, training_options, with_weight_column)
 
 
@@ -32,6 +32,11 @@ def sweep(
     optimizers: Annotated[str, typer.Option("--optimizers", help="Comma-separated optimizers: sgd, adagrad, adadelta, rmsprop, adam, ftrl.")] = "sgd,adagrad,adam",
     learning_rates: Annotated[str, typer.Option("--learning-rates", help="Comma-separated learning rates, each tried with every optimizer.")] = "1e-4,1e-3,1e-2,1e-1,1",
     workers: Annotated[int, typer.Option("--workers", help="Runs at once, each in its own process (0 = one per core); results do not depend on it.")] = 0,
+    halving: Annotated[Optional[int], typer.Option(
+        "--halving", metavar="FACTOR",
+        help="Successive halving: train every run a few epochs, keep the best 1/FACTOR, give them FACTOR times "
+             "the epochs, and repeat (e.g. 3); stopped runs show 'pruned at epoch N'.")] = None,
+    cluster: ClusterOpt = None,
     reader: ReaderOptions = None,
     featurizer: FeaturizerConfig = None,
     options: TrainOptions = None,
@@ -42,9 +47,11 @@ def sweep(
 ):
     """Train every optimizer with every learning rate in parallel; keep the best run as a model.
 
+    DATA may be a feature store (lintext featurize); with --cluster every run is a task on a Dask cluster.
+
     Example: lintext sweep data/demo/train.csv --dev data/demo/dev.csv --optimizers sgd,adam --learning-rates 0.01,0.1,1 --out sweeps/demo
     """
-    from ..report.sweep_page import HEADERS, METRIC_NAMES, SHOWN_COLUMNS, TEXT_COLUMNS, cell, ranked
+    from ..report.sweep_page import HEADERS, METRIC_NAMES, TEXT_COLUMNS, cell, ranked, shown_columns
     from ..outputs import check_output_folder
     from ..tuning import sweep as sweeping
 
@@ -55,18 +62,21 @@ def sweep(
     try:
         result = sweeping.sweep(data, dev=dev, dev_fraction=dev_fraction, featurizer=featurizer, options=options,
                                 optimizers=names, learning_rates=rates, workers=workers,
-                                reader=with_weight_column(reader, weight_column), n_jobs=jobs, progress=display)
+                                reader=with_weight_column(reader, weight_column), n_jobs=jobs, progress=display,
+                                halving=halving, cluster=cluster)
     finally:
         display.close()
     with status(f"Writing {out_dir}", quiet):
         where = result.save(out_dir, force=force)
     metric = METRIC_NAMES[result.stop_metric]
-    table = Table(title=f"{len(result.rows)} runs ranked by {metric} (best first), {result.settings['workers']} worker(s)",
-                  box=box.SIMPLE_HEAD, pad_edge=False)
-    for col in SHOWN_COLUMNS:
+    where_run = f"{result.settings['workers']} worker(s)" + (" on the cluster" if "cluster" in result.settings else "")
+    table = Table(title=f"{len(result.rows)} runs ranked by {metric} (best first), {where_run}", box=box.SIMPLE_HEAD,
+                  pad_edge=False)
+    columns = shown_columns(result.rows)
+    for col in columns:
         table.add_column(HEADERS[col], justify="left" if col in TEXT_COLUMNS else "right", no_wrap=True)
     for row in ranked(result.rows, result.stop_metric):
-        table.add_row(*[cell(row, col) for col in SHOWN_COLUMNS], style="bold green" if row["run"] == result.best else None)
+        table.add_row(*[cell(row, col) for col in columns], style="bold green" if row["run"] == result.best else None)
     print_wide(table)
     if result.best is None:
         kept = f"{where / 'best'} still holds the previous sweep's model" if result.kept_previous_best else "no model saved"

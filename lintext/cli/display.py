@@ -27,6 +27,7 @@ class Display:
         self.progress = None
         self.task = None
         self.spinner = None
+        self.unit = None
 
     def __call__(self, event: dict) -> None:
         if not self.enabled:
@@ -45,19 +46,30 @@ class Display:
             self._bar("epoch", event["epochs"], event["epoch"], info)
         elif stage == "run":
             row = event["row"]
-            self._bar("run", event["total"], event["done"], f"{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
+            rung = f"rung {event['rung']}/{event['rungs']} ({event['epochs']} epochs) " if "rung" in event else ""
+            self._bar("run", event["total"], event["done"], f"{rung}{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
+        elif stage == "cluster":
+            self._bar("run", event["total"], event["finished"], f"{event['running']} running, {event['queued']} queued; "
+                      f"last: {event['row']['optimizer']} {event['row']['learning_rate']:g}: {event['row']['status']}")
+        elif stage == "featurize":
+            self._bar(f"{event['step']}: document", event["total"], event["documents"],
+                      f"{event['per_second']:,.0f} documents/s")
         elif stage == "probe":
             self._bar("rung", event["rungs"], event["rung"],
                       f"learning_rate {event['learning_rate']:.3g}  mean_loss {event['mean_loss']:.4f}")
 
     def _bar(self, unit: str, total: int, done: int, info: str) -> None:
         self._stop_spinner()
+        if self.progress is not None and self.unit != unit:  # a new phase: a new bar
+            self.progress.stop()
+            self.progress = None
+        self.unit = unit
         if self.progress is None:
             self.progress = Progress(TextColumn(f"{unit} {{task.completed}}/{{task.total}}"), BarColumn(),
                                      TextColumn("{task.fields[info]}"), TimeElapsedColumn(), console=err)
             self.progress.start()
             self.task = self.progress.add_task(unit, total=total, info="")
-        self.progress.update(self.task, completed=done, info=info)
+        self.progress.update(self.task, completed=done, total=total, info=info)
 
     def _stop_spinner(self):
         if self.spinner is not None:

@@ -27,15 +27,20 @@ from ..errors import ConfigError
 from ..text.config import WEIGHTINGS, FeaturizerConfig, parse_range
 
 DataPath = Annotated[Path, typer.Argument(
-    metavar="DATA", help="Labelled data: a CSV/TSV/JSON Lines file or a folder with one sub-folder per label.")]
+    metavar="DATA", help="Labelled data: a CSV/TSV/JSON Lines file, a folder with one sub-folder per label, or a "
+                         "feature store written by lintext featurize (its featurizer and dev rows are used).")]
 ModelPath = Annotated[Path, typer.Argument(metavar="MODEL_DIR", help="A model directory written by lintext train.")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")]
 DevOpt = Annotated[Optional[Path], typer.Option("--dev", metavar="FILE", help="A dev set; then all of DATA trains.")]
 DevFractionOpt = Annotated[float, typer.Option(
-    "--dev-fraction", help="Share of DATA held out for dev (stratified, seeded); 0 for none.")]
+    "--dev-fraction", help="Share of DATA held out for dev (stratified, seeded); 0 for none. A store keeps its own split.")]
 JobsOpt = Annotated[int, typer.Option("--jobs", help="Processes for featurizing large corpora (0 = one per core).")]
 ForceOpt = Annotated[bool, typer.Option(
     "--force", help="Replace --out even when lintext did not write it (never the current folder or an input).")]
+ClusterOpt = Annotated[Optional[str], typer.Option(
+    "--cluster", metavar="ADDRESS",
+    help="A running Dask scheduler, e.g. tcp://127.0.0.1:8786, to run on (needs: pip install 'lintext[cluster]').")]
+
 WeightColumnOpt = Annotated[Optional[str], typer.Option(
     "--weight-column", metavar="NAME",
     help="Column or field of DATA holding each document's weight (a number of at least 0); the losses shown are then weighted.")]
@@ -50,9 +55,10 @@ def with_weight_column(reader, weight_column):
     return replace(reader or ReaderOptions(), weight_column=weight_column).validate() if weight_column else reader
 
 
-def _group(target: str, params: list, build):
+def _group(target: str, params: list, build, none_unless_typed: bool = False):
     """A decorator adding ``params`` (name, annotation, default) to a command; the command
-    receives ``build(**their values)`` as ``target`` instead."""
+    receives ``build(**their values)`` as ``target`` instead (``None`` when ``none_unless_typed``
+    and every option of the group has its default value: none was typed, or only the defaults)."""
 
     def decorate(func):
         signature = inspect.signature(func)
@@ -65,7 +71,9 @@ def _group(target: str, params: list, build):
         @functools.wraps(func)
         def wrapper(*args, **kwargs):
             values = {name: kwargs.pop(name) for name, _, _ in params}
-            return func(*args, **{target: build(**values)}, **kwargs)
+            typed = any(values[name] != default for name, _, default in params)
+            built = build(**values) if not none_unless_typed or typed else None
+            return func(*args, **{target: built}, **kwargs)
 
         wrapper.__signature__ = signature.replace(parameters=own + added)
         return wrapper
@@ -158,7 +166,7 @@ featurizer_options = _group("featurizer", [
     ("hash_space_", Annotated[Optional[str], typer.Option(
         "--hash-space", metavar="COLUMNS",
         help="Hash features into this many columns (e.g. 2^20) instead of keeping a vocabulary.")], None),
-], _featurizer)
+], _featurizer, none_unless_typed=True)  # None: the defaults, or a feature store's own featurizer
 
 
 # ------------------------------------------------------------------ training

@@ -111,3 +111,4 @@ class TrainResult:
     stopped_early: bool
     feature_stats: dict[str, np.ndarray]
     options: TrainOptions = field(default_factory=TrainOptions)
+    checkpoint: dict | None = None  # fit(..., keep_checkpoint=True): where to go on from (engine/resume.py)

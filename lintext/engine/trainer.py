@@ -62,6 +62,8 @@ from .monitor import Monitor, TrainResult, history_row, suggest_learning_rate
 from .optimizers import kernel_hyperparameters
 from .options import TrainOptions, parse_label_weights
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
+from .resume import restore, snapshot
+from .shards import RowShards, epoch_pieces, shard_dev_scores
 
 DIVERGENCE_FACTOR = 1e3
 # A train loss that rose in this many epochs in a row (each above the one before) is divergence.
@@ -77,19 +79,21 @@ RISING_MARGIN = 0.01
 
 def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | None = None,
         progress: Callable[[dict], None] | None = None, sample_weight=None, dev_weight=None,
-        label_names=None) -> TrainResult:
+        label_names=None, resume: dict | None = None, keep_checkpoint: bool = False) -> TrainResult:
     """Train a linear classifier on sparse features.
 
     Parameters
     ----------
-    X : scipy.sparse matrix of shape (n, n_features)
-        Training features (converted to CSR; float64 or float32).
+    X : scipy.sparse matrix of shape (n, n_features), or :class:`~lintext.engine.shards.RowShards`
+        Training features (converted to CSR; float64 or float32); shards are read one at a time
+        and shuffled shard-wise (see :mod:`lintext.engine.shards`).
     y : int array of shape (n,)
-        Label index of each row, in ``[0, n_labels)``.
+        Label index of each row, in ``[0, n_labels)`` (``None`` with shards: they carry their labels).
     n_labels : int
         Number of labels (at least 2).
     X_dev, y_dev : optional
-        Dev rows, used for the history, early stopping and plateau decay; never for training.
+        Dev rows, used for the history, early stopping and plateau decay; never for training
+        (``X_dev`` may be RowShards, with ``y_dev`` None).
     options : TrainOptions, optional
     progress : callable, optional
         Called after each epoch with the history row plus ``epochs`` (the most epochs).
@@ -97,6 +101,9 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
         Per-document weights (positive, finite) of the training and dev rows.
     label_names : list of str, optional
         The labels' names, for ``options.label_weights`` given per label.
+    resume, keep_checkpoint : optional
+        Go on from the ``checkpoint`` of an earlier result of the same data and options with fewer
+        ``epochs``; keep one in the result (:mod:`lintext.engine.resume`; not for L-BFGS).
 
     Returns
     -------
@@ -114,11 +121,18 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
     if int(n_labels) < 2:
         raise ConfigError("n_labels", n_labels, "need at least two labels")
     n_labels = int(n_labels)
-    X, y = check_training_arrays(X, y, n_labels, "X", "y")
+    if options.optimizer == "lbfgs":  # full batch: shards are stacked in memory
+        X, y = X.concatenated() if isinstance(X, RowShards) else (X, y)
+        X_dev, y_dev = X_dev.concatenated() if isinstance(X_dev, RowShards) else (X_dev, y_dev)
+    if isinstance(X_dev, RowShards):
+        y_dev = X_dev.labels()
+    if not isinstance(X, RowShards):
+        X, y = check_training_arrays(X, y, n_labels, "X", "y")
     if (X_dev is None) != (y_dev is None):
         raise ValueError("give both X_dev and y_dev, or neither")
     if X_dev is not None:
-        X_dev, y_dev = check_training_arrays(X_dev, y_dev, n_labels, "X_dev", "y_dev")
+        if not isinstance(X_dev, RowShards):
+            X_dev, y_dev = check_training_arrays(X_dev, y_dev, n_labels, "X_dev", "y_dev")
         if X_dev.shape[1] != X.shape[1]:
             raise ValueError(f"X_dev has {X_dev.shape[1]} columns, X has {X.shape[1]}")
         if X_dev.shape[0] == 0:
@@ -132,16 +146,22 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
         if weights is not None:
             raise ConfigError("--label-weights", options.label_weights, "lbfgs takes no weights; use a stochastic optimizer")
         return fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
-    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights)
+    if isinstance(X, RowShards) and weights is not None:
+        raise ConfigError("--label-weights", options.label_weights, "weights are not taken with a sharded feature store")
+    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights, resume,
+                           keep_checkpoint)
 
 
 # --------------------------------------------------------------------------- stochastic rules
 
 
-def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=None, dev_weights=None):
+def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=None, dev_weights=None, resume=None,
+                    keep_checkpoint=False):
     dtype = np.dtype(options.precision)
     n, n_features = X.shape
-    data = np.ascontiguousarray(X.data, dtype=dtype)  # float32: converted once, here
+    # float32: converted once, here (shards: as each is read)
+    data = None if isinstance(X, RowShards) else np.ascontiguousarray(X.data, dtype=dtype)
+    check = lambda Xk, yk: check_training_arrays(Xk, yk, n_labels, "X", "y")  # noqa: E731  (each shard as read)
     code = options.spec.code
     rule = options.make_rule()
     hyper = kernel_hyperparameters(rule)
@@ -159,7 +179,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     rng = np.random.default_rng(options.seed)
     schedule_code = SCHEDULE_CODES[options.schedule]
     early_stopping = X_dev is not None and options.patience > 0
-    dev = None if X_dev is None else (X_dev.indptr, X_dev.indices, X_dev.data)
+    dev = None if X_dev is None or isinstance(X_dev, RowShards) else (X_dev.indptr, X_dev.indices, X_dev.data)
 
     history: list[dict] = []
     monitor = Monitor(options.stop_metric if X_dev is not None else "train-loss", options.min_improvement)
@@ -170,16 +190,23 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     reference_loss = zero_model_loss
     train_losses: list[float] = []
     last_lr = lr
-    for epoch in range(1, options.epochs + 1):
+    if resume is not None:  # go on where an earlier run of these options stopped (engine/resume.py)
+        lr, best_params, best_epoch, history, reference_loss, last_lr = restore(resume, params, state, rng, monitor)
+    for epoch in range(len(history) + 1, options.epochs + 1):
         started = time.perf_counter()
-        order = rng.permutation(n).astype(np.int64)
-        # flush=False: the decaying rules leave the state decay of absent rows to their next
-        # touch (the weights are exact after every epoch either way); flushed once below.
-        loss_sum, finite = kernels.run_epoch(
-            X.indptr, X.indices, data, y, order, params, state, loss_code=losses.LOSS_CODES[options.loss],
-            optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
-            l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
-            l1=options.l1, example_weight=weights, avg_from=avg_from, **hyper)
+        loss_sum, finite = 0.0, True
+        # One piece in memory; one per shard for RowShards (engine/shards.py: how they are shuffled).
+        for piece in epoch_pieces(X, y, rng, dtype, check, data):
+            # flush=False: the decaying rules leave the state decay of absent rows to their next
+            # touch (the weights are exact after every epoch either way); flushed once below.
+            part, finite = kernels.run_epoch(
+                *piece.arrays(), params, state, loss_code=losses.LOSS_CODES[options.loss],
+                optimizer_code=code, schedule_code=schedule_code, learning_rate=lr, decay=options.decay,
+                l2=options.l2, batch_size=options.batch_size, lazy=options.lazy, flush=False, threads=threads,
+                l1=options.l1, example_weight=weights, avg_from=avg_from, **hyper)
+            loss_sum += part
+            if not finite:
+                break
         train_loss = loss_sum / total_weight
         if (not finite or not math.isfinite(train_loss) or train_loss > DIVERGENCE_FACTOR * reference_loss
                 or not kernels.all_finite(params)):
@@ -197,6 +224,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
         row = history_row(epoch, train_loss, last_lr, current, options.loss, dev, y_dev, threads, dev_weights)
         if weights is not None or dev_weights is not None:
             row["weighted_loss"] = True
+        if isinstance(X_dev, RowShards):
+            row.update(shard_dev_scores(X_dev, current, options.loss, threads, check))
         improved = monitor.update(row)
         if improved:
             best_epoch = epoch
@@ -215,6 +244,9 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
         if options.schedule == "plateau":
             lr = plateau_update(lr, improved, options.plateau_factor)
 
+    checkpoint = None
+    if keep_checkpoint and not stopped_early:
+        checkpoint = snapshot(params, state, rng, lr, monitor, best_params, best_epoch, history, reference_loss, last_lr)
     kernels.flush(params, state, optimizer_code=code, beta1=hyper["beta1"], beta2=hyper["beta2"],
                   rho=hyper["rho"], threads=threads)
     if early_stopping and best_params is not None:
@@ -224,7 +256,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
         params = current
     stats = _feature_stats(rule, state, code, last_lr, n_features)
     return TrainResult(np.ascontiguousarray(params[:-1]), params[-1].copy(), history, best_epoch,
-                       stopped_early, stats, options)
+                       stopped_early, stats, options, checkpoint)
 
 
 def _feature_stats(rule, state, code, lr, n_features, block=1 << 14) -> dict:

@@ -19,7 +19,8 @@ from .layout import figure_block, fmt, page, section, table
 
 # Every column of sweep.csv, in order; the terminal and the page show SHOWN_COLUMNS.
 SWEEP_COLUMNS = ("run", "optimizer", "learning_rate", "status", "stop_metric", "stop_value", "dev_accuracy",
-                 "dev_macro_f1", "dev_loss", "best_epoch", "epochs_run", "diverged_epoch", "seconds", "cpu_seconds")
+                 "dev_macro_f1", "dev_loss", "best_epoch", "epochs_run", "diverged_epoch", "seconds", "cpu_seconds",
+                 "attempts")
 SHOWN_COLUMNS = ("rank", "optimizer", "learning_rate", "status", "dev_loss", "dev_accuracy", "dev_macro_f1", "best_epoch",
                  "epochs_run", "seconds")
 TEXT_COLUMNS = ("optimizer", "status", "stop_metric")
@@ -27,7 +28,8 @@ TEXT_COLUMNS = ("optimizer", "status", "stop_metric")
 HEADERS = {"rank": "rank", "run": "run", "optimizer": "optimizer", "learning_rate": "learning rate", "status": "status",
            "stop_metric": "stop metric", "stop_value": "stop value", "dev_loss": "dev loss", "dev_accuracy": "dev accuracy",
            "dev_macro_f1": "dev macro-F1", "best_epoch": "best epoch", "epochs_run": "epochs run",
-           "diverged_epoch": "diverged at epoch", "seconds": "seconds", "cpu_seconds": "processor seconds"}
+           "diverged_epoch": "diverged at epoch", "seconds": "seconds", "cpu_seconds": "processor seconds",
+           "attempts": "attempts"}
 METRIC_NAMES = {"dev-loss": "dev loss", "accuracy": "dev accuracy", "macro-f1": "dev macro-F1"}
 METRIC_KEYS = {"dev-loss": "dev_loss", "accuracy": "dev_accuracy", "macro-f1": "dev_macro_f1"}
 
@@ -41,6 +43,11 @@ def ranked(rows: list, stop_metric: str) -> list:
     scored.sort(key=lambda r: (sign * r["stop_value"], r["run"]))
     rest = [r for r in rows if r not in scored]
     return [{**r, "rank": k} for k, r in enumerate(scored, start=1)] + [{**r, "rank": None} for r in rest]
+
+
+def shown_columns(rows: list[dict]) -> tuple:
+    """SHOWN_COLUMNS, and ``attempts`` when a run had to start again (a cluster worker was lost during it)."""
+    return SHOWN_COLUMNS + (("attempts",) if any(r.get("attempts", 1) > 1 for r in rows) else ())
 
 
 def cell(row: dict, column: str) -> str:
@@ -57,16 +64,22 @@ def sweep_page(result) -> str:
     """The page of a :class:`lintext.tuning.sweep.SweepResult`."""
     metric = result.stop_metric
     data = result.settings.get("data", {})
-    rows = [[escape(cell(row, c)) for c in SHOWN_COLUMNS] for row in ranked(result.rows, metric)]
-    numeric = {i for i, c in enumerate(SHOWN_COLUMNS) if c not in TEXT_COLUMNS}
+    columns = shown_columns(result.rows)
+    rows = [[escape(cell(row, c)) for c in columns] for row in ranked(result.rows, metric)]
+    numeric = {i for i, c in enumerate(columns) if c not in TEXT_COLUMNS}
     best = "" if result.best is None else (f" The best run is <b>{escape(result.rows[result.best]['optimizer'])} at "
                                             f"{result.rows[result.best]['learning_rate']:g}</b>; its model is in "
                                             "<code>best/</code>.")
+    halving = result.settings.get("halving")
+    pruning = "" if not halving else (
+        f" Successive halving with factor {halving['factor']}: rungs of "
+        f"{', '.join(str(r['epochs']) for r in halving['rungs'])} epochs; the runs it stopped show "
+        "<i>pruned at epoch N</i>.")
     intro = (f"<p>{len(result.rows)} runs on {escape(str(data.get('train', '')))} "
              f"({fmt(data.get('train_documents'))} documents; dev: {escape(str(data.get('dev', '')))}, "
-             f"{fmt(data.get('dev_documents'))} documents), ranked by {METRIC_NAMES[metric]}.{best}</p>")
+             f"{fmt(data.get('dev_documents'))} documents), ranked by {METRIC_NAMES[metric]}.{best}{pruning}</p>")
     sections = [
-        section("runs", "Runs", intro + table([HEADERS[c] for c in SHOWN_COLUMNS], rows, numeric)),
+        section("runs", "Runs", intro + table([HEADERS[c] for c in columns], rows, numeric)),
         section("rates", f"{METRIC_NAMES[metric].capitalize()} against the learning rate", figure_block(
             figures.render(_metric_figure, "sr", "Stop metric against the learning rate", result),
             "One line per optimizer; the star is the best run, crosses on the bottom edge are runs that diverged.",

@@ -73,7 +73,7 @@ def _word_tokenizer(lowercase: bool):
     return lambda doc: tokenize(preprocess(decode(doc)))
 
 
-def _analyzed_ids(texts, analyze, lookup):
+def analyzed_ids(texts, analyze, lookup):
     """Feature ids of every document, concatenated, and the number per document."""
     ids, lengths = array("q"), array("q")
     extend, push = ids.extend, lengths.append
@@ -84,7 +84,7 @@ def _analyzed_ids(texts, analyze, lookup):
     return np.frombuffer(ids, dtype=np.int64), np.frombuffer(lengths, dtype=np.int64)
 
 
-def _growing_vocabulary():
+def growing_vocabulary():
     vocabulary = defaultdict()
     vocabulary.default_factory = vocabulary.__len__  # a new feature gets the next id
     return vocabulary
@@ -151,8 +151,8 @@ def _csr(rows, cols, shape) -> sp.csr_matrix:
 
 def count_word_chunk(texts, lowercase, ngram_range):
     """Worker: (sorted tokens, sorted n-gram keys, counts) of one chunk; ``None`` if keys overflow."""
-    vocabulary = _growing_vocabulary()
-    ids, lengths = _analyzed_ids(texts, _word_tokenizer(lowercase), vocabulary.__getitem__)
+    vocabulary = growing_vocabulary()
+    ids, lengths = analyzed_ids(texts, _word_tokenizer(lowercase), vocabulary.__getitem__)
     tokens, rank = _sorted_vocabulary(vocabulary)
     base = len(tokens) + 1
     if base ** ngram_range[1] > _KEY_LIMIT:
@@ -165,8 +165,8 @@ def count_word_chunk(texts, lowercase, ngram_range):
 def count_string_chunk(texts, analyzer, ngram_range, lowercase):
     """Worker: (sorted feature names, counts) of one chunk with scikit-learn's analyzer."""
     analyze = CountVectorizer(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=lowercase).build_analyzer()
-    vocabulary = _growing_vocabulary()
-    ids, lengths = _analyzed_ids(texts, analyze, vocabulary.__getitem__)
+    vocabulary = growing_vocabulary()
+    ids, lengths = analyzed_ids(texts, analyze, vocabulary.__getitem__)
     names, rank = _sorted_vocabulary(vocabulary)
     rows = np.repeat(np.arange(lengths.size, dtype=np.int64), lengths)
     # one newline-joined string pickles far faster than a list (features hold no newline)
@@ -251,9 +251,18 @@ def kept_columns(counts, n_docs, cfg) -> tuple[np.ndarray, np.ndarray]:
     """Columns kept by min_df / max_df / max_features exactly as ``CountVectorizer._limit_features``
     keeps them (same float64 term totals, same argsort), and every column's document frequency."""
     n_cols = counts.shape[1]
+    df = np.bincount(counts.indices, minlength=n_cols)
+    totals = lambda: np.bincount(counts.indices, weights=counts.data.astype(np.float64), minlength=n_cols)  # noqa: E731
+    return kept_by_frequency(df, totals, n_docs, cfg), df
+
+
+def kept_by_frequency(df, totals, n_docs, cfg) -> np.ndarray:
+    """Columns kept by min_df / max_df / max_features given each column's document frequency ``df`` and a
+    callable giving its total count (float64; needed only for max_features): :func:`kept_columns` without
+    the matrix, for counts gathered chunk by chunk (:mod:`lintext.text.streaming`)."""
+    n_cols = len(df)
     if not n_cols:
         raise ConfigError("--min-df", cfg.min_df, "no features left (empty vocabulary; the texts hold no tokens)")
-    df = np.bincount(counts.indices, minlength=n_cols)
     lo, hi = df_arg(cfg.min_df), df_arg(cfg.max_df)
     max_count = hi if isinstance(hi, Integral) else hi * n_docs
     min_count = lo if isinstance(lo, Integral) else lo * n_docs
@@ -261,15 +270,14 @@ def kept_columns(counts, n_docs, cfg) -> tuple[np.ndarray, np.ndarray]:
         raise ConfigError("--min-df", cfg.min_df, "no features left (max_df corresponds to < documents than min_df)")
     mask = (df <= max_count) & (df >= min_count)
     if cfg.max_features is not None and mask.sum() > cfg.max_features:
-        totals = np.bincount(counts.indices, weights=counts.data.astype(np.float64), minlength=n_cols)
-        best = (-totals[mask]).argsort()[: cfg.max_features]
+        best = (-totals()[mask]).argsort()[: cfg.max_features]
         limited = np.zeros(n_cols, dtype=bool)
         limited[np.flatnonzero(mask)[best]] = True
         mask = limited
     kept = np.flatnonzero(mask)
     if not kept.size:
         raise ConfigError("--min-df", cfg.min_df, "no features left (after pruning, no terms remain)")
-    return kept, df
+    return kept
 
 
 def select_columns(X: sp.csr_matrix, kept: np.ndarray) -> sp.csr_matrix:
@@ -314,7 +322,7 @@ def word_index_from_names(names, ngram_range):
 def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, columns, n_cols):
     """Worker: word counts of one chunk over a fitted vocabulary given as sorted n-gram keys."""
     rank = _TokenRank(zip(tokens, range(len(tokens))))
-    ids, lengths = _analyzed_ids(texts, _word_tokenizer(lowercase), rank.__getitem__)
+    ids, lengths = analyzed_ids(texts, _word_tokenizer(lowercase), rank.__getitem__)
     found, rows = ngram_keys(ids, lengths, ngram_range, base)
     if not keys.size:
         return sp.csr_matrix((lengths.size, n_cols))

@@ -91,7 +91,7 @@ class Featurizer:
         if cfg.hashing:
             counts = self._hashed_counts(texts, jobs)
             df = np.bincount(counts.indices, minlength=counts.shape[1])
-            keep = _df_mask(df, len(texts), cfg.min_df, cfg.max_df)
+            keep = df_mask(df, len(texts), cfg.min_df, cfg.max_df)
             self.used_columns = np.flatnonzero(keep)
             counts = counts @ sp.diags(keep.astype(counts.dtype))
             counts.eliminate_zeros()
@@ -112,11 +112,7 @@ class Featurizer:
         texts = list(texts)
         jobs = self._jobs_for(len(texts))
         if self.config.hashing:
-            counts = self._hashed_counts(texts, jobs)
-            mask = np.zeros(counts.shape[1], dtype=counts.dtype)
-            mask[self.used_columns] = 1
-            counts = counts @ sp.diags(mask)
-            counts.eliminate_zeros()
+            return self.from_counts(self._hashed_counts(texts, jobs))
         elif jobs > 1:
             counts = self._transform_chunked(texts, jobs)
         else:
@@ -125,6 +121,17 @@ class Featurizer:
             if char is not None:
                 blocks.append(char.transform(texts))
             counts = sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0].tocsr()
+        return self._weight(counts)
+
+    def from_counts(self, counts: sp.csr_matrix) -> sp.csr_matrix:
+        """Weighted rows from raw counts over this featurizer's columns; in hashing mode
+        (counts from :func:`hashed_counts`) the columns outside the document-frequency limits are
+        dropped first. What :meth:`transform` does after counting."""
+        if self.config.hashing:
+            mask = np.zeros(counts.shape[1], dtype=counts.dtype)
+            mask[self.used_columns] = 1
+            counts = counts @ sp.diags(mask)
+            counts.eliminate_zeros()
         return self._weight(counts)
 
     @property
@@ -238,9 +245,9 @@ class Featurizer:
 
     def _hashed_counts(self, texts, jobs: int = 1) -> sp.csr_matrix:
         if jobs > 1:
-            parts = run_parallel([delayed(_count_hashed)(c, self.config) for c in split_contiguous(texts, jobs)], jobs)
+            parts = run_parallel([delayed(hashed_counts)(c, self.config) for c in split_contiguous(texts, jobs)], jobs)
             return sp.vstack(parts, format="csr")
-        return _count_hashed(texts, self.config)
+        return hashed_counts(texts, self.config)
 
     def _weight(self, counts: sp.csr_matrix) -> sp.csr_matrix:
         X = counts.astype(np.float64).tocsr()
@@ -338,8 +345,9 @@ def _names_by_column(vocabulary: dict) -> list[str]:
     return names.tolist()
 
 
-def _count_hashed(texts, cfg: FeaturizerConfig) -> sp.csr_matrix:
-    """Hashed word (+ character) counts; stateless, so chunks can be counted anywhere."""
+def hashed_counts(texts, cfg: FeaturizerConfig) -> sp.csr_matrix:
+    """Hashed word (+ character) counts; stateless, so chunks can be counted anywhere (another
+    process or machine) and stacked."""
     common = dict(n_features=cfg.hash_space, alternate_sign=False, norm=None, lowercase=cfg.lowercase)
     counts = HashingVectorizer(analyzer="word", ngram_range=cfg.ngrams, **common).transform(texts)
     if cfg.char_ngrams is not None:
@@ -349,7 +357,7 @@ def _count_hashed(texts, cfg: FeaturizerConfig) -> sp.csr_matrix:
     return counts
 
 
-def _df_mask(df, n_docs, min_df, max_df) -> np.ndarray:
+def df_mask(df, n_docs, min_df, max_df) -> np.ndarray:
     """Columns kept by the document-frequency limits, read as scikit-learn reads them."""
     lo, hi = (v if isinstance(v, int) else v * n_docs for v in (df_arg(min_df), df_arg(max_df)))
     return (df >= max(lo, 1)) & (df <= hi)

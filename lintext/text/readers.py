@@ -189,8 +189,8 @@ def iter_records(
     if not p.exists():
         raise InputError(p, "no such file or folder")
     if fmt == "folder":
-        if not p.is_dir():
-            raise InputError(p, "not a folder")
+        if not p.is_dir() or (p / "store.json").is_file():  # store.json: a feature store (lintext.text.store)
+            raise InputError(p, "is a feature store (lintext featurize), not labelled files" if p.is_dir() else "not a folder")
         if reader.weight_column is not None:
             raise ConfigError("--weight-column", reader.weight_column, "a folder of documents has no columns")
         return _iter_folder(p)

@@ -10,7 +10,7 @@ reshuffled when used up, and each example's loss is taken before its batch's upd
 term).
 
 The probe reads and featurizes through :func:`lintext.pipeline.prepare_data`, as training
-does; its files (``rungs.csv``, ``probe.json``, ``probe.html``) and page are described in
+does (a feature store too: a store of several shards is stacked in memory, in file order); its files (``rungs.csv``, ``probe.json``, ``probe.html``) and page are described in
 :mod:`lintext.report.probe_page`.
 """
 
@@ -29,9 +29,11 @@ from ..engine import kernels, losses
 from ..engine.optimizers import STEP_OPTIMIZERS, kernel_hyperparameters
 from ..engine.options import TrainOptions
 from ..engine.schedules import SCHEDULE_CONSTANT
+from ..engine.shards import RowShards
 from ..engine.trainer import check_training_arrays
 from ..errors import ConfigError
 from ..files import atomic_directory, atomic_file, csv_value, write_json
+from ..from_store import stacked
 from ..pipeline import Progress, prepare_data
 from ..report.probe_page import RUNG_COLUMNS, SUMMARY_KEYS, probe_page, rate_text
 from ..text.config import FeaturizerConfig
@@ -288,6 +290,7 @@ def probe(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
                         probe_options.get("highest_rate", DEFAULT_HIGHEST_RATE),
                         probe_options.get("steps_per_rung", DEFAULT_STEPS_PER_RUNG))
     prepared = prepare_data(data, dev, dev_fraction, featurizer, options.seed, reader, progress=progress, options=options)
-    result = probe_learning_rate(prepared.X, prepared.y, len(prepared.labels), options, progress=progress, **probe_options)
+    X, y = stacked(prepared.X) if isinstance(prepared.X, RowShards) else (prepared.X, prepared.y)  # a sharded store
+    result = probe_learning_rate(X, y, len(prepared.labels), options, progress=progress, **probe_options)
     result.settings["data"] = prepared.description
     return result

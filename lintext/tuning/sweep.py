@@ -39,29 +39,30 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
-import scipy.sparse as sp
 from joblib import Parallel, delayed, parallel_config
 
 from ..engine.optimizers import STEP_OPTIMIZERS
 from ..engine.footprint import training_bytes, workers_that_fit
 from ..engine.options import TrainOptions
+from ..engine.shards import RowShards
 from ..engine.sparsity import zero_weights
-from ..engine.trainer import fit
-from ..errors import ConfigError, DivergenceError, LinTextError
+from ..errors import ConfigError
 from ..files import atomic_directory, atomic_file, write_json
 from ..model import Model, stored_weights
 from ..outputs import output_kind, process_alive, remove_path
 from ..pipeline import PreparedData, Progress, finish_with_dev, prepare_data
-from ..report.sweep_page import METRIC_KEYS, SWEEP_COLUMNS, sweep_page
+from ..report.sweep_page import SWEEP_COLUMNS, sweep_page
 from ..resources import capped_processes, stop_worker_processes
-from ..text.featurizer import FeaturizerConfig
+from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
+from .cluster import ClusterRunner, cluster_client
+from .halving import successive_halving
+from .runs import RunData, best_run, open_shared, run_row, share_arrays, train_run  # noqa: F401  (re-exported)
 
 DEFAULT_OPTIMIZERS = ("sgd", "adagrad", "adam")
 DEFAULT_LEARNING_RATES = (1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 TIMINGS = ("seconds", "cpu_seconds")  # the only columns that differ between repeated sweeps
 SHARED_PREFIX = "lintext-sweep-"  # + process id: the temporary folder of the shared arrays
-_SHARED = ("data", "indices", "indptr", "y", "dev_data", "dev_indices", "dev_indptr", "dev_y")
 
 
 # --------------------------------------------------------------------------- grid
@@ -105,78 +106,6 @@ def make_grid(options: TrainOptions, optimizers, learning_rates) -> list[TrainOp
     for run in grid:
         run.validate()
     return grid
-
-
-# --------------------------------------------------------------------------- shared arrays
-
-
-def share_arrays(folder: Path, X, y, X_dev, y_dev) -> dict:
-    """Write the arrays workers open memory-mapped; returns the matrix shapes."""
-    arrays = dict(data=X.data, indices=X.indices, indptr=X.indptr, y=y, dev_data=X_dev.data,
-                  dev_indices=X_dev.indices, dev_indptr=X_dev.indptr, dev_y=y_dev)
-    for name, array in arrays.items():
-        np.save(folder / f"{name}.npy", np.ascontiguousarray(array), allow_pickle=False)
-    return {"X": X.shape, "X_dev": X_dev.shape}
-
-
-def open_shared(folder: Path, shapes: dict):
-    """Open the shared arrays read-only and memory-mapped: ``(X, y, X_dev, y_dev)``, no copies."""
-    a = {name: np.load(folder / f"{name}.npy", mmap_mode="r", allow_pickle=False) for name in _SHARED}
-    X = sp.csr_matrix((a["data"], a["indices"], a["indptr"]), shape=shapes["X"], copy=False)
-    X_dev = sp.csr_matrix((a["dev_data"], a["dev_indices"], a["dev_indptr"]), shape=shapes["X_dev"], copy=False)
-    return X, a["y"], X_dev, a["dev_y"]
-
-
-# --------------------------------------------------------------------------- runs
-
-
-def _run(folder: str, shapes: dict, index: int, options: TrainOptions, n_labels: int,
-         labels: list | None = None) -> tuple[dict, list[dict]]:
-    """Train run ``index`` in a worker; save its weights as ``run-<index>.npz`` in ``folder``."""
-    folder = Path(folder)
-    X, y, X_dev, y_dev = open_shared(folder, shapes)
-    weights = {name: np.load(folder / f"{name}.npy", allow_pickle=False) if (folder / f"{name}.npy").exists() else None
-               for name in ("sample_weight", "dev_weight")}
-    seen: list[dict] = []
-    started, cpu = time.perf_counter(), time.process_time()
-    try:
-        result = fit(X, y, n_labels, X_dev, y_dev, options,
-                     progress=lambda row: seen.append({k: v for k, v in row.items() if k != "epochs"}),
-                     label_names=labels, **weights)
-    except DivergenceError as exc:
-        return run_row(index, options, seen, None, f"diverged at epoch {exc.epoch}", time.perf_counter() - started,
-                       time.process_time() - cpu, diverged_epoch=exc.epoch), seen
-    except LinTextError as exc:  # re-raised with a message only: typed errors need not unpickle
-        raise LinTextError(str(exc)) from None
-    seconds, cpu = time.perf_counter() - started, time.process_time() - cpu
-    np.savez(folder / f"run-{index}.npz", coef=result.coef, intercept=result.intercept,
-             **{f"stat_{k}": v for k, v in result.feature_stats.items()})
-    status = "stopped early" if result.stopped_early else "finished"
-    return run_row(index, options, result.history, result.best_epoch, status, seconds, cpu), result.history
-
-
-def run_row(index: int, options: TrainOptions, history: list[dict], best_epoch: int | None, status: str,
-            seconds: float, cpu_seconds: float, diverged_epoch: int | None = None) -> dict:
-    """One row of the sweep table; metrics are those of the epoch whose weights were kept.
-
-    ``seconds`` is the run's wall time, ``cpu_seconds`` the processor time of its process
-    (the two differ when other processes compete for the cores).
-    """
-    best = history[best_epoch - 1] if best_epoch else {}
-    return {
-        "run": index, "optimizer": options.optimizer, "learning_rate": float(options.learning_rate), "status": status,
-        "stop_metric": options.stop_metric, "stop_value": best.get(METRIC_KEYS[options.stop_metric]),
-        "dev_accuracy": best.get("dev_accuracy"), "dev_macro_f1": best.get("dev_macro_f1"), "dev_loss": best.get("dev_loss"),
-        "best_epoch": best_epoch, "epochs_run": diverged_epoch or len(history), "diverged_epoch": diverged_epoch,
-        "seconds": round(seconds, 4), "cpu_seconds": round(cpu_seconds, 4),
-    }
-
-
-def best_run(rows: list[dict], stop_metric: str) -> int | None:
-    """Index of the best row by ``stop_metric`` (first in grid order on ties); None when every run diverged."""
-    sign = 1.0 if stop_metric == "dev-loss" else -1.0
-    scored = [(sign * r["stop_value"], r["run"]) for r in rows if r["stop_value"] is not None and math.isfinite(r["stop_value"])]
-    return min(scored)[1] if scored else None
 
 
 @dataclass
@@ -234,22 +163,30 @@ class SweepResult:
 def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfig | dict | None = None,
           options: TrainOptions | dict | None = None, optimizers=DEFAULT_OPTIMIZERS,
           learning_rates=DEFAULT_LEARNING_RATES, workers: int | None = None, reader: ReaderOptions | None = None,
-          n_jobs: int = 1, progress: Progress | None = None) -> SweepResult:
+          n_jobs: int = 1, progress: Progress | None = None, halving: int | None = None, cluster=None,
+          stream: bool | None = None) -> SweepResult:
     """Train every (optimizer, learning rate) pair with early stopping, in parallel, and pick the best.
 
     Parameters
     ----------
     data, dev, dev_fraction, featurizer, reader, n_jobs
         As for :func:`lintext.pipeline.build_model`; a dev set is required (it ranks the runs).
+        ``data`` may be a feature store (``lintext featurize``).
     options : TrainOptions or dict
         Shared options of every run; ``optimizer`` and ``learning_rate`` are replaced by the grid.
     optimizers, learning_rates : sequences, or comma-separated strings
     workers : int or None
         Runs at once, each in its own process (``None`` or 0: one per core). Runs are
         deterministic whatever the number.
+    halving : int or None
+        Successive halving with this factor (:mod:`lintext.tuning.halving`); ``None``: the full grid.
+    cluster : str, a ``distributed.Client`` or None
+        Run each run as a task on the Dask scheduler at this address (``tcp://host:port``) instead
+        of local processes (:mod:`lintext.tuning.cluster`); the results are the same.
     progress : callable
         Called with ``{"stage": "reading" | "featurizing" | "run", ...}``; a ``run`` event
-        carries ``done``, ``total`` and the finished run's ``row``.
+        carries ``done``, ``total`` and the finished run's ``row`` (on a cluster also ``running``
+        and ``queued``; with halving ``rung``, ``rungs`` and ``epochs``).
 
     Returns
     -------
@@ -260,48 +197,72 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     grid = make_grid(base, optimizers, learning_rates)
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 0):
         raise ConfigError("--workers", workers, "must be a whole number of processes (0 = one per core)")
+    if halving is not None and (isinstance(halving, bool) or not isinstance(halving, int) or halving < 2):
+        raise ConfigError("--halving", halving, "the factor of successive halving is a whole number, at least 2")
     jobs = capped_processes(workers, cap=len(grid))
     if dev is None and not dev_fraction:
         raise ConfigError("--dev-fraction", dev_fraction, "a sweep ranks its runs on dev data; give --dev FILE or a fraction above 0")
-    heaviest = max(grid, key=lambda run: training_bytes(1, 1, run))  # refused up front if even it alone cannot fit
-    prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report,
-                            options=heaviest)
-    n_labels = len(prepared.labels)
-    jobs = workers_that_fit(jobs, prepared.X.shape[1], n_labels, heaviest)  # as many runs at once as fit in memory
-    started = time.perf_counter()
-    found: dict[int, tuple[dict, list]] = {}
-    remove_shared_leftovers()
-    with tempfile.TemporaryDirectory(prefix=f"{SHARED_PREFIX}{os.getpid()}-") as folder:
-        shapes = share_arrays(Path(folder), prepared.X, prepared.y, prepared.X_dev, prepared.y_dev)
-        for name, array in (("sample_weight", prepared.weights), ("dev_weight", prepared.dev_weights)):
-            if array is not None:
-                np.save(Path(folder) / f"{name}.npy", array, allow_pickle=False)
-        # Smallest learning rates first: they tend to run every epoch, so the long runs start
-        # early and the short ones fill the gaps at the end (longest-first scheduling).
-        order = sorted(range(len(grid)), key=lambda i: (grid[i].learning_rate, i))
-        tasks = (delayed(_run)(folder, shapes, i, grid[i], n_labels, prepared.labels) for i in order)
-        try:
-            with parallel_config(backend="loky", inner_max_num_threads=1):
-                for row, history in Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(tasks):
-                    found[row["run"]] = (row, history)
-                    report({"stage": "run", "done": len(found), "total": len(grid), "row": row})
-        except BaseException:  # an error, Ctrl-C or SIGTERM: no worker runs on after the sweep
-            stop_worker_processes()
-            raise
-        rows = [found[i][0] for i in range(len(grid))]
-        histories = [found[i][1] for i in range(len(grid))]
-        best = best_run(rows, base.stop_metric)
-        model = None
-        if best is not None:
-            with np.load(Path(folder) / f"run-{best}.npz", allow_pickle=False) as saved:
-                weights = {k: saved[k] for k in saved.files}
-            model = _best_model(prepared, grid[best], rows[best], histories[best], weights, len(grid))
+    client = cluster_client(cluster) if cluster is not None else None  # fails fast, before featurizing
+    try:
+        heaviest = max(grid, key=lambda run: training_bytes(1, 1, run))  # refused up front if even it alone cannot fit
+        prepared = prepare_data(data, dev, dev_fraction, featurizer, base.seed, reader, n_jobs, progress=report,
+                                options=heaviest, stream=stream)
+        if prepared.X_dev is None:
+            raise ConfigError("--dev", None, f"{data}: a sweep ranks its runs on dev data, and the store holds none; give --dev FILE")
+        n_labels = len(prepared.labels)
+        jobs = workers_that_fit(jobs, prepared.X.shape[1], n_labels, heaviest)  # as many runs at once as fit in memory
+        started = time.perf_counter()
+        remove_shared_leftovers()
+        with tempfile.TemporaryDirectory(prefix=f"{SHARED_PREFIX}{os.getpid()}-") as folder:
+            shards = prepared.X if isinstance(prepared.X, RowShards) else None
+            dev_shards = prepared.X_dev if isinstance(prepared.X_dev, RowShards) else None
+            run_data = RunData(folder, share_arrays(Path(folder), prepared.X, prepared.y, prepared.X_dev, prepared.y_dev),
+                               shards, dev_shards, labels=list(prepared.labels),
+                               weights={"sample_weight": prepared.weights, "dev_weight": prepared.dev_weights})
+            if client is not None:
+                runner = ClusterRunner(client, run_data, n_labels, report)
+                jobs = runner.workers
+            else:
+                runner = local_runner(run_data, n_labels, jobs, folder)
+            # Smallest learning rates first: they tend to run every epoch, so the long runs start
+            # early and the short ones fill the gaps at the end (longest-first scheduling).
+            first = lambda task: (task[1].learning_rate, task[0])  # noqa: E731
+            if halving is None:
+                tasks = sorted(((i, grid[i], None, None) for i in range(len(grid))), key=first)
+                results = {}
+                for row, history, weights, _ in runner(tasks):
+                    results[row["run"]] = (row, history, weights)
+                    report({"stage": "run", "done": len(results), "total": len(grid), "row": row})
+                rungs = None
+            else:
+                results, rungs = successive_halving(grid, runner, base.stop_metric, halving, report, order_key=first)
+            if client is not None:
+                runner.count_attempts(results)
+                runner.close()
+            rows = [results[i][0] for i in range(len(grid))]
+            histories = [results[i][1] for i in range(len(grid))]
+            best = best_run([r for r in rows if not r["status"].startswith("pruned")], base.stop_metric)
+            model = None
+            if best is not None:
+                weights = results[best][2]
+                if weights is None:
+                    with np.load(Path(folder) / f"run-{best}.npz", allow_pickle=False) as saved:
+                        weights = {k: saved[k] for k in saved.files}
+                model = _best_model(prepared, grid[best], rows[best], histories[best], weights, len(grid))
+    finally:
+        if client is not None and isinstance(cluster, str):  # a Client given by the caller stays open
+            client.close()
     settings = {
         "optimizers": list(dict.fromkeys(r.optimizer for r in grid)),
         "learning_rates": list(dict.fromkeys(r.learning_rate for r in grid)),
         "workers": jobs, "parallel_seconds": round(time.perf_counter() - started, 3),
         "training": base.to_json(), "featurizer": prepared.featurizer.config.to_json(), "data": prepared.description,
     }
+    if client is not None:
+        settings["cluster"] = runner.describe()
+    if rungs is not None:
+        settings["halving"] = {"factor": halving, "rungs": rungs,
+                               "reference": "Jamieson & Talwalkar 2016 (successive halving); Li et al. 2017 (Hyperband bracket)"}
     return SweepResult(rows, histories, base.stop_metric, best, model, settings)
 
 
@@ -319,6 +280,22 @@ def remove_shared_leftovers() -> None:
         pid = folder.name[len(SHARED_PREFIX):].split("-", 1)[0]
         if pid.isdigit() and int(pid) != os.getpid() and not process_alive(int(pid)):
             remove_path(folder)
+
+
+def local_runner(run_data: RunData, n_labels: int, jobs: int, folder: str):
+    """``runner(tasks)``: runs in ``jobs`` local processes (joblib's loky), one numba thread each, weights
+    saved to ``folder``; yields results as they finish."""
+    def run(tasks):
+        calls = (delayed(train_run)(run_data, i, options, n_labels, epochs, folder, resume=resume)
+                 for i, options, epochs, resume in tasks)
+        try:
+            with parallel_config(backend="loky", inner_max_num_threads=1):
+                yield from Parallel(n_jobs=jobs, batch_size=1, return_as="generator_unordered")(calls)
+        except BaseException:  # an error, Ctrl-C or SIGTERM: no worker runs on after the sweep
+            stop_worker_processes()
+            raise
+
+    return run
 
 
 def _best_model(prepared: PreparedData, options: TrainOptions, row: dict, history: list, weights: dict, n_runs: int) -> Model:

@@ -1,0 +1,70 @@
+"""Successive halving: the bracket's budgets against the Hyperband paper, and a halved sweep against the full grid.
+
+References: L. Li et al., "Hyperband" (JMLR 2017/2018), Table 1 (the brackets for R = 81, eta = 3);
+K. Jamieson & A. Talwalkar (AISTATS 2016) for the procedure; the full grid run by lintext itself
+(every configuration to the end) as the reference for the choice and the weights.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from lintext.errors import ConfigError
+from lintext.tuning.halving import halving_budgets
+from lintext.tuning.sweep import sweep
+
+OPTIONS = {"epochs": 9, "patience": 3}
+
+
+def test_budgets_of_the_most_aggressive_bracket():
+    # Li et al., Table 1, R = 81, eta = 3, bracket s = 4: n_i = 81, 27, 9, 3, 1 configurations with
+    # r_i = 1, 3, 9, 27, 81 units of resource.
+    assert halving_budgets(81, 81, 3) == [(81, 1), (27, 3), (9, 9), (3, 27), (1, 81)]
+    # Hand-worked: 15 runs, 50 epochs, eta 3: s = min(floor(log3 15), floor(log3 50)) = min(2, 3) = 2,
+    # epochs round(50 / 9) = 6, round(50 / 3) = 17, 50; configurations 15, 5, 1.
+    assert halving_budgets(15, 50, 3) == [(15, 6), (5, 17), (1, 50)]
+    # Fewer epochs than runs: s is capped by the epochs (log2 4 = 2), so the first rung has 1 epoch.
+    assert halving_budgets(12, 4, 2) == [(12, 1), (6, 2), (3, 4)]
+
+
+def strip(row):
+    return {k: v for k, v in row.items() if k not in ("seconds", "cpu_seconds")}
+
+
+@pytest.mark.slow
+def test_halving_keeps_the_full_grids_best_run_and_its_weights(small_split):
+    kwargs = dict(dev=small_split["dev"], optimizers="sgd,adagrad,adam", learning_rates=[0.001, 0.03, 0.3, 3.0],
+                  workers=1, options=OPTIONS)
+    full = sweep(small_split["train"], **kwargs)
+    halved = sweep(small_split["train"], halving=3, **kwargs)
+    # 12 runs, 9 epochs, eta 3: s = 2, rungs (12 runs, 1 epoch), (4, 3), (1, 9)
+    assert [(r["epochs"], len(r["runs"])) for r in halved.settings["halving"]["rungs"]][0] == (1, 12)
+    assert halved.best == full.best
+    assert np.array_equal(halved.model.coef, full.model.coef) and np.array_equal(halved.model.intercept, full.model.intercept)
+    pruned = [r for r in halved.rows if r["status"].startswith("pruned at epoch ")]
+    assert pruned and all(r["status"] == f"pruned at epoch {r['epochs_run']}" for r in pruned)
+    for a, b in zip(halved.rows, full.rows):
+        if not a["status"].startswith("pruned"):  # ran to its end: the full grid's row
+            assert strip(a) == strip(b)
+        else:  # the first epochs of the same run
+            assert [h["dev_loss"] for h in halved.histories[a["run"]]] == \
+                [h["dev_loss"] for h in full.histories[a["run"]]][: a["epochs_run"]]
+    assert sum(r["epochs_run"] for r in halved.rows) < sum(r["epochs_run"] for r in full.rows)
+
+
+def test_halving_factor_is_checked(small_split):
+    with pytest.raises(ConfigError) as info:
+        sweep(small_split["train"], dev=small_split["dev"], halving=1, workers=1)
+    assert info.value.option == "--halving"
+
+
+@pytest.mark.slow
+def test_halving_page_and_table_say_pruned(small_split, tmp_path):
+    result = sweep(small_split["train"], dev=small_split["dev"], optimizers="sgd", learning_rates=[1e-4, 0.01, 1.0, 10.0],
+                   workers=1, halving=2, options={"epochs": 4, "patience": 0})
+    # 4 runs, 4 epochs, eta 2: rungs (4, 1), (2, 2), (1, 4): two runs pruned at epoch 1, one at epoch 2
+    assert sorted(r["status"] for r in result.rows if r["status"].startswith("pruned")) == \
+        ["pruned at epoch 1", "pruned at epoch 1", "pruned at epoch 2"]
+    out = result.save(tmp_path / "sweep")
+    assert "pruned at epoch 1" in (out / "sweep.csv").read_text() and "pruned at epoch 2" in (out / "sweep.html").read_text()
