@@ -2,8 +2,8 @@
 
 Word n-grams always; character n-grams inside word boundaries when asked
 (``char_wb``); a learned vocabulary or a fixed number of hashed columns.
-Weighting (``binary``, ``count``, ``log`` = 1 + ln count, ``tfidf``, ``log-tfidf`` = (1 + ln count) x idf) and
-unit-length rows follow. The inverse document frequency is scikit-learn's
+Weighting (``binary``, ``count``, ``log`` = 1 + ln count, ``tfidf``, ``log-tfidf``
+= (1 + ln count) x idf) and unit-length rows follow. The inverse document frequency is scikit-learn's
 smoothed form ``idf = ln((1 + n) / (1 + df)) + 1`` (``TfidfTransformer`` with
 ``smooth_idf=True``): the textbook ``log(N / df)`` (Manning, Raghavan & Schütze
 2008, ch. 6) with one extra document containing every term, plus one so that a
@@ -39,10 +39,9 @@ from .chunked_counts import (
     word_index_from_names,
 )
 from ..errors import ConfigError, ModelFileError
+from .vocabulary import VOCAB_HEADER, escape, read_vocabulary  # noqa: F401  (VOCAB_HEADER: re-exported)
 from .config import FeaturizerConfig, parse_range  # noqa: F401  (parse_range: re-exported)
 
-VOCAB_HEADER = "feature\tcolumn\tdocument_frequency"
-OLD_VOCAB_HEADERS = ("feature\tindex\tdocument_frequency",)  # read, never written
 PARALLEL_MIN_DOCS = 20_000  # fewer texts than this: one pass in this process, even with n_jobs > 1
 
 
@@ -257,10 +256,9 @@ class Featurizer:
             X.data[:] = 1.0
         elif w == "log":
             X.data = 1.0 + np.log(X.data)
-        elif w == "tfidf":
-            X = (X @ sp.diags(self.idf())).tocsr()
-        elif w == "log-tfidf":  # scikit-learn's TfidfVectorizer(sublinear_tf=True)
-            X.data = 1.0 + np.log(X.data)
+        elif w in ("tfidf", "log-tfidf"):  # log-tfidf: scikit-learn's TfidfVectorizer(sublinear_tf=True)
+            if w == "log-tfidf":
+                X.data = 1.0 + np.log(X.data)
             X = (X @ sp.diags(self.idf())).tocsr()
         if self.config.normalize:
             X = _normalize_rows(X, norm="l2", copy=False)
@@ -283,7 +281,7 @@ class Featurizer:
         with open(path, "w", encoding="utf-8", newline="\n") as fh:
             fh.write(VOCAB_HEADER + "\n")
             for name, j, df in self.vocabulary_rows():
-                fh.write(f"{_escape(name)}\t{j}\t{df}\n")
+                fh.write(f"{escape(name)}\t{j}\t{df}\n")
 
     @classmethod
     def load(cls, state: dict, vocabulary_path: str | os.PathLike, n_jobs: int = 1) -> "Featurizer":
@@ -293,7 +291,7 @@ class Featurizer:
             n_documents = int(state["n_documents"])
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(vocabulary_path, f"featurizer state is incomplete or wrong: {exc}") from None
-        names, index, df = _read_vocabulary(Path(vocabulary_path))
+        names, index, df = read_vocabulary(Path(vocabulary_path))
         if len(df) and (df.min() < 0 or df.max() > n_documents):
             line = int(np.flatnonzero((df < 0) | (df > n_documents))[0]) + 2
             raise ModelFileError(vocabulary_path, f"line {line}: document frequency {df[line - 2]} outside 0..{n_documents} "
@@ -361,60 +359,6 @@ def df_mask(df, n_docs, min_df, max_df) -> np.ndarray:
     """Columns kept by the document-frequency limits, read as scikit-learn reads them."""
     lo, hi = (v if isinstance(v, int) else v * n_docs for v in (df_arg(min_df), df_arg(max_df)))
     return (df >= max(lo, 1)) & (df <= hi)
-
-
-_ESCAPES = {"\\": "\\\\", "\t": "\\t", "\n": "\\n", "\r": "\\r"}
-_UNESCAPES = {"\\": "\\", "t": "\t", "n": "\n", "r": "\r"}
-
-
-def _escape(text: str) -> str:
-    return "".join(_ESCAPES.get(c, c) for c in text)
-
-
-def _unescape(text: str) -> str:
-    if "\\" not in text:
-        return text
-    out, i = [], 0
-    while i < len(text):
-        c = text[i]
-        if c == "\\" and i + 1 < len(text):
-            out.append(_UNESCAPES.get(text[i + 1], text[i + 1]))
-            i += 2
-        else:
-            out.append(c)
-            i += 1
-    return "".join(out)
-
-
-def _read_vocabulary(path: Path):
-    if not path.is_file():
-        raise ModelFileError(path, "vocabulary file is missing")
-    names, index, df = [], [], []
-    number = 1
-    try:
-        with open(path, "rb") as fh:
-            header = fh.readline().rstrip(b"\n")
-            if header.decode("utf-8", "replace") != VOCAB_HEADER and header.decode("utf-8", "replace") not in OLD_VOCAB_HEADERS:
-                raise ModelFileError(path, f"line 1: expected the header {VOCAB_HEADER!r}")
-            for number, raw in enumerate(fh, start=2):
-                parts = raw.rstrip(b"\n").decode("utf-8").split("\t")
-                if len(parts) != 3:
-                    raise ModelFileError(path, f"line {number}: expected 3 tab-separated fields, found {len(parts)}")
-                try:
-                    column, frequency = int(parts[1]), int(parts[2])
-                except ValueError:
-                    raise ModelFileError(path, f"line {number}: column and document frequency must be integers") from None
-                for what, value in (("column", column), ("document frequency", frequency)):
-                    if not 0 <= value < 2**62:
-                        raise ModelFileError(path, f"line {number}: {what} {str(value)[:20]} out of range")
-                index.append(column)
-                df.append(frequency)
-                names.append(_unescape(parts[0]))
-    except UnicodeDecodeError:
-        raise ModelFileError(path, f"line {number}: not valid UTF-8") from None
-    except OSError as exc:
-        raise ModelFileError(path, f"cannot be read ({exc.strerror or exc})") from None
-    return names, np.asarray(index, dtype=np.int64), np.asarray(df, dtype=np.int64)
 
 
 def corpus_stats(corpus, config: FeaturizerConfig | None = None) -> dict:

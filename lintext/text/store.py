@@ -35,13 +35,13 @@ import scipy.sparse as sp
 from .. import __version__
 from ..errors import InputError, LinTextError
 from .featurizer import Featurizer
+from .vocabulary import escape, unescape
 
 STORE_FILE = "store.json"
 STORE_KIND = "lintext feature store"
 FORMAT_VERSION = 1
 PARTS = ("data", "dev")
 ARRAYS = ("data", "indices", "indptr", "labels", "records")
-_ESCAPES = {"\\": "\\\\", "\n": "\\n", "\r": "\\r"}
 
 
 def is_store(path) -> bool:
@@ -111,22 +111,6 @@ def source_change(recorded: dict) -> str | None:
 # ------------------------------------------------------------------ writing
 
 
-def _escape(text: str) -> str:
-    return "".join(_ESCAPES.get(c, c) for c in text) if ("\n" in text or "\r" in text or "\\" in text) else text
-
-
-def _unescape(text: str) -> str:
-    if "\\" not in text:
-        return text
-    out, i = [], 0
-    while i < len(text):
-        if text[i] == "\\" and i + 1 < len(text):
-            out.append({"n": "\n", "r": "\r"}.get(text[i + 1], text[i + 1]))
-            i += 2
-        else:
-            out.append(text[i])
-            i += 1
-    return "".join(out)
 
 
 class ShardWriter:
@@ -174,7 +158,7 @@ class ShardWriter:
         for key, array in arrays.items():
             np.save(folder / f"{key}.npy", np.ascontiguousarray(array), allow_pickle=False)
         with open(folder / "sources.txt", "w", encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
-            fh.writelines(_escape(s) + "\n" for s in sources[:rows])
+            fh.writelines(escape(s) + "\n" for s in sources[:rows])
         self.shards.append({"name": name, "rows": int(rows), "nonzeros": int(X.nnz)})
 
 
@@ -207,7 +191,7 @@ class DealingWriter:
                 with open(self.spool / f"{k}.{key}", "ab") as fh:
                     fh.write(np.ascontiguousarray(array).tobytes())
             with open(self.spool / f"{k}.sources", "a", encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
-                fh.writelines(_escape(sources[i]) + "\n" for i in rows.tolist())
+                fh.writelines(escape(sources[i]) + "\n" for i in rows.tolist())
 
     def close(self) -> list[dict]:
         """Write every shard from its spool files (one in memory at a time); the shards' names, rows and non-zeros."""
@@ -259,7 +243,7 @@ def write_store_json(folder: Path, featurizer: Featurizer, labels: list[str], pa
 def read_sources(path) -> list[str]:
     """The lines of a shard's ``sources.txt``, unescaped."""
     with open(path, encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
-        return [_unescape(line[:-1]) for line in fh]
+        return [unescape(line[:-1]) for line in fh]
 
 
 @dataclass

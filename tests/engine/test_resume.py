@@ -58,5 +58,5 @@ def test_resuming_equals_one_uninterrupted_run(options, sharded):
 def test_no_checkpoint_after_early_stopping():
     X, y = problem()
     X_dev, y_dev = problem(n=60, seed=1)
-    result = fit(X, y, 3, X_dev, y_dev, TrainOptions(learning_rate=50.0, epochs=40, patience=1), keep_checkpoint=True)
+    result = fit(X, y, 3, X_dev, y_dev, TrainOptions(learning_rate=3.0, epochs=40, patience=1), keep_checkpoint=True)
     assert result.stopped_early and result.checkpoint is None

@@ -25,7 +25,8 @@ from lintext.errors import ConfigError, InputError
 from lintext.from_store import featurize, rows_of
 from lintext.pipeline import build_model, evaluate, prediction_rows, prepare_data
 from lintext.text.config import FeaturizerConfig
-from lintext.text.readers import read_corpus, split_dev
+from lintext.text.readers import read_corpus
+from lintext.text.split import split_dev
 from lintext.text.store import open_store
 from lintext.text.streaming import dev_rows, scan_labels
 from tests.conftest import DEMO, small_corpus_rows, write_csv
@@ -86,12 +87,13 @@ def test_store_round_trips_to_the_matrix_of_the_in_memory_featurizer(corpus_csv,
 
 
 def test_store_matches_scikit_learn_vectorizers(corpus_csv, tmp_path):
-    # Reference: scikit-learn. CountVectorizer(1-2 grams, min_df=2) + TfidfTransformer (l2, smooth idf)
+    # Reference: scikit-learn. CountVectorizer(1-2 grams, min_df=2) + TfidfTransformer(sublinear_tf=True) (the
+    # default log-tfidf: 1 + ln count, l2, smooth idf)
     # fitted on the training rows; HashingVectorizer counts for hashing mode before weighting.
     store = featurize(corpus_csv, tmp_path / "s", dev_fraction=0, shard_rows=11)
     texts = read_corpus(corpus_csv).texts
     counts = CountVectorizer(ngram_range=(1, 2), min_df=2).fit_transform(texts)
-    assert abs(in_file_order(store)[0] - TfidfTransformer().fit_transform(counts)).max() < 1e-12
+    assert abs(in_file_order(store)[0] - TfidfTransformer(sublinear_tf=True).fit_transform(counts)).max() < 1e-12
     hashed = featurize(corpus_csv, tmp_path / "h", dev_fraction=0, shard_rows=11,
                        featurizer=FeaturizerConfig(hash_space=2**10, min_df=1, weighting="count", normalize=False))
     ref = HashingVectorizer(n_features=2**10, ngram_range=(1, 2), alternate_sign=False, norm=None).transform(texts)
