@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import csv
 import os
 from pathlib import Path
 
@@ -21,23 +20,70 @@ CSV_COLUMNS = ("column", "feature", "document_frequency", "frequency_bin", "upda
 def write_features_csv(table: dict, path: str | os.PathLike) -> Path:
     """Write a :func:`feature_table` as CSV (header :data:`CSV_COLUMNS`; missing numbers are empty cells).
 
-    Floats are written with ``repr`` (they read back bit for bit); the frequency bin is
-    its label (``"3–4"``). The file is written to a temporary path and renamed into place.
+    Every cell is what :func:`lintext.files.csv_value` gives (floats with ``repr``, so they read
+    back bit for bit; whole floats as integers; NaN as an empty cell), quoted as :mod:`csv`
+    quotes; the frequency bin is its label (``"3–4"``). Formatted a column and a block of rows
+    at a time, never cell by cell. Written to a temporary path and renamed into place.
     """
+    n = len(table["column"])
+    bins = np.asarray(table["frequency_bin"], dtype=np.int64)
+    bin_names = np.array([bin_label(k) for k in range(int(bins.max(initial=-1)) + 1)] + [""], dtype=object)
+
     def write(fh):
-        writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow(CSV_COLUMNS)
-        n = len(table["column"])
-        for i in range(n):
-            row = []
+        fh.write(",".join(CSV_COLUMNS) + "\n")
+        for start in range(0, n, CSV_BLOCK_ROWS):
+            block = slice(start, min(n, start + CSV_BLOCK_ROWS))
+            columns = []
             for name in CSV_COLUMNS:
-                value = table[name][i]
                 if name == "frequency_bin":
-                    value = bin_label(int(value)) if value >= 0 else ""
-                row.append(csv_value(value))
-            writer.writerow(row)
+                    columns.append(bin_names[bins[block]].tolist())  # -1 (df = 0) picks the last entry, ""
+                else:
+                    columns.append(csv_cells(table[name][block]))
+            fh.write("\n".join(map(",".join, zip(*columns))) + "\n")
 
     return atomic_file(Path(path), write)
+
+
+CSV_BLOCK_ROWS = 65536
+_QUOTE = ',"\r\n'
+
+
+def csv_cells(values) -> list[str]:
+    """:func:`lintext.files.csv_value` of every item of a column, ready to join with commas.
+
+    Numbers are formatted per column (integers with ``str``, floats with ``repr``, whole floats
+    below 2**53 as integers, NaN and infinities empty); text is quoted as :mod:`csv` quotes
+    it (``"..."`` with doubled quotes) when it holds a comma, a quote or a line break.
+    """
+    if isinstance(values, np.ndarray) and values.dtype.kind in "iu":
+        return list(map(str, values.tolist()))
+    if isinstance(values, np.ndarray) and values.dtype.kind == "f":
+        return _float_cells(values)
+    values = list(values)
+    if all(isinstance(v, str) for v in values):
+        if not any(c in "\0".join(values) for c in _QUOTE):
+            return values
+        return [_quoted(v) for v in values]
+    return [_quoted(csv_value(v)) for v in values]
+
+
+def _float_cells(values: np.ndarray) -> list[str]:
+    values = values.astype(np.float64, copy=False)
+    finite = np.isfinite(values)
+    whole = finite & (np.trunc(values) == values) & (np.abs(values) < 2.0**53)
+    if whole.all():
+        return list(map(str, values.astype(np.int64).tolist()))
+    cells = np.array(list(map(repr, values.tolist())), dtype=object)
+    if whole.any():
+        cells[whole] = np.array(list(map(str, values[whole].astype(np.int64).tolist())), dtype=object)
+    cells[~finite] = ""
+    return cells.tolist()
+
+
+def _quoted(text: str) -> str:
+    if any(c in text for c in _QUOTE):
+        return '"' + text.replace('"', '""') + '"'
+    return text
 
 
 def report_html(model: Model, top: int = 10, rare_rows: int = 15, title: str | None = None, table: dict | None = None) -> str:

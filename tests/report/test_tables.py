@@ -1,0 +1,124 @@
+"""features.csv formatted a column at a time, and the strongest features found without sorting
+every label: both must give exactly what the cell-by-cell and sort-everything versions gave.
+
+References: Python's own ``csv`` module (``csv.writer`` writing :func:`lintext.files.csv_value`
+cell by cell, the way features.csv was written before, and ``csv.reader`` plus ``float`` reading
+it back) and NumPy's ``np.lexsort`` over a whole column.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import struct
+
+import numpy as np
+import pytest
+
+from lintext.files import csv_value
+from lintext.report.stats import bin_label, largest_per_column
+from lintext.report.writer import CSV_COLUMNS, csv_cells, write_features_csv
+
+# Floats whose text is easy to get wrong: whole floats (written as integers below 2**53, as repr
+# from there), negative zero, the repr switch to exponents (1e16, 1e-05), the largest and
+# smallest doubles, a subnormal, non-finite values (empty cells).
+AWKWARD = [0.0, -0.0, 1.0, -3.0, 0.1, 1 / 3, 2.0**53 - 1, 2.0**53, 2.0**53 + 2, 1e16, 1e15 + 0.5, 1e-5, 1.5e-4,
+           123456789.125, -2.5e-310, 5e-324, 1.7976931348623157e308, math.nan, math.inf, -math.inf]
+TEXTS = ["plain", "", "with, comma", 'a "quoted" word', "line\nbreak", "tab\there", "[ab]", "naïve café", "x | y"]
+
+
+def awkward_table(n: int = 4000, seed: int = 0) -> dict:
+    rng = np.random.default_rng(seed)
+    floats = lambda: np.where(rng.random(n) < 0.3, rng.choice(AWKWARD, n),  # noqa: E731
+                              rng.standard_normal(n) * 10.0 ** rng.integers(-12, 12, n))
+    df = rng.integers(0, 5000, n)
+    return {
+        "column": np.arange(n, dtype=np.int64),
+        "feature": [TEXTS[i] if i < len(TEXTS) else f"feature {i}" for i in rng.integers(0, 2 * len(TEXTS), n)],
+        "document_frequency": df,
+        "frequency_bin": np.where(df >= 1, np.frexp(np.maximum(df - 1, 0).astype(float))[1], -1).astype(np.int64),
+        "update_count": rng.integers(0, 100, n).astype(np.float64),
+        "abs_update_sum": floats(),
+        "weight_norm": floats(),
+        "max_weight": floats(),
+        "max_weight_label": [TEXTS[i] for i in rng.integers(0, len(TEXTS), n)],
+        "effective_step": floats(),
+    }
+
+
+def cell_by_cell(table: dict) -> str:
+    """features.csv as written before: csv.writer over csv_value of every cell."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(CSV_COLUMNS)
+    for i in range(len(table["column"])):
+        row = []
+        for name in CSV_COLUMNS:
+            value = table[name][i]
+            if name == "frequency_bin":
+                value = bin_label(int(value)) if value >= 0 else ""
+            row.append(csv_value(value))
+        writer.writerow(row)
+    return buf.getvalue()
+
+
+def test_features_csv_is_byte_identical_to_cell_by_cell_writing(tmp_path):
+    table = awkward_table()
+    write_features_csv(table, tmp_path / "features.csv")
+    with open(tmp_path / "features.csv", encoding="utf-8", newline="") as fh:
+        written = fh.read()
+    assert written == cell_by_cell(table)  # Python's csv.writer over csv_value, cell by cell
+
+
+def test_features_csv_reads_back_bit_for_bit(tmp_path):
+    table = awkward_table(seed=1)
+    write_features_csv(table, tmp_path / "features.csv")
+    with open(tmp_path / "features.csv", encoding="utf-8", newline="") as fh:
+        rows = list(csv.DictReader(fh))  # Python's csv reader
+    assert [r["feature"] for r in rows] == table["feature"]
+    assert [r["max_weight_label"] for r in rows] == table["max_weight_label"]
+    assert [int(r["document_frequency"]) for r in rows] == table["document_frequency"].tolist()
+    for name in ("abs_update_sum", "weight_norm", "max_weight", "effective_step", "update_count"):
+        for cell, value in zip((r[name] for r in rows), table[name].tolist()):
+            if math.isfinite(value):
+                # the same double, bit for bit (negative zero is written "0", which reads back as +0.0)
+                assert struct.pack("<d", float(cell)) == struct.pack("<d", value + 0.0), (name, cell, value)
+            else:
+                assert cell == ""
+
+
+@pytest.mark.parametrize("values", [
+    np.array(AWKWARD), np.array([3, -7, 0, 2**62], dtype=np.int64), np.array([1.0, 2.0, -0.0]),
+    np.array([], dtype=np.float64), np.array([True, False]), TEXTS, [1, 2.5, None, "x"],
+])
+def test_csv_cells_equal_csv_value(values):
+    out = io.StringIO()
+    csv.writer(out, lineterminator="\n").writerow([csv_value(v) for v in values])  # Python's csv quoting
+    assert ",".join(csv_cells(values)) + "\n" == (out.getvalue() if len(values) else "\n")
+
+
+def test_csv_cells_quote_a_carriage_return_so_it_reads_back():
+    # Python's csv.reader refuses an unquoted carriage return inside a field; a quoted one reads back
+    cells = csv_cells(["a\rb", "c"])
+    assert next(csv.reader(io.StringIO(",".join(cells) + "\n", newline=""))) == ["a\rb", "c"]
+
+
+@pytest.mark.parametrize("n, labels, top", [(50_000, 7, 10), (3_000, 4, 25), (30, 3, 10), (45_000, 2, 1)])
+def test_largest_per_column_equals_a_full_sort(n, labels, top):
+    rng = np.random.default_rng(n)
+    values = rng.integers(-40, 40, size=(n, labels)).astype(np.float64)  # many ties at every threshold
+    values[rng.integers(0, n, 20), rng.integers(0, labels, 20)] = np.inf
+    tiebreak = rng.permutation(n).astype(np.int64)
+    got = largest_per_column(values, tiebreak, top, list(range(labels)))
+    for j in range(labels):
+        expected = np.lexsort((tiebreak, -values[:, j]))[:top]  # NumPy: sort the whole column
+        assert got[j].tolist() == expected.tolist()
+    one = largest_per_column(values, tiebreak, top, [labels - 1])
+    assert one[0].tolist() == np.lexsort((tiebreak, -values[:, labels - 1]))[:top].tolist()
+
+
+def test_largest_per_column_with_nan_sorts_everything():
+    values = np.array([[np.nan, 1.0], [2.0, np.nan], [0.5, 0.5]])
+    got = largest_per_column(values, np.arange(3), 2, [0, 1])
+    assert [g.tolist() for g in got] == [np.lexsort((np.arange(3), -values[:, j]))[:2].tolist() for j in (0, 1)]
