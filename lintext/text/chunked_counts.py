@@ -1,7 +1,8 @@
 """Chunked counting: word and character n-gram counts over contiguous chunks of
 texts in worker processes, merged so that the matrix, vocabulary and document
 frequencies equal one scikit-learn ``CountVectorizer`` pass bit for bit.
-Used by :class:`lintext.features.Featurizer` when ``n_jobs > 1``.
+Used by :class:`lintext.text.featurizer.Featurizer` when ``n_jobs > 1``. scikit-learn, SciPy
+and joblib load when a function here first needs them, so importing the featurizer is cheap.
 """
 
 from __future__ import annotations
@@ -12,9 +13,6 @@ from itertools import chain, repeat
 from numbers import Integral
 
 import numpy as np
-import scipy.sparse as sp
-from joblib import Parallel
-from sklearn.feature_extraction.text import CountVectorizer
 
 from ..errors import ConfigError
 
@@ -58,6 +56,8 @@ class _TokenRank(dict):
 
 
 def run_parallel(tasks, jobs: int) -> list:
+    from joblib import Parallel
+
     return Parallel(n_jobs=jobs, backend="loky")(tasks)
 
 
@@ -68,6 +68,8 @@ def split_contiguous(texts: list, parts: int) -> list[list]:
 
 def _word_tokenizer(lowercase: bool):
     """scikit-learn's word analysis before n-grams: decode, preprocess, tokenize."""
+    from sklearn.feature_extraction.text import CountVectorizer
+
     vec = CountVectorizer(lowercase=lowercase)
     decode, preprocess, tokenize = vec.decode, vec.build_preprocessor(), vec.build_tokenizer()
     return lambda doc: tokenize(preprocess(decode(doc)))
@@ -144,6 +146,8 @@ def _unique_inverse(values, inverse=True):
 
 def _csr(rows, cols, shape) -> sp.csr_matrix:
     """Counts of (row, column) pairs as CSR with sorted column indices."""
+    import scipy.sparse as sp
+
     X = sp.csr_matrix((np.ones(rows.size, dtype=np.int32), (rows, cols)), shape=shape)
     X.sum_duplicates()
     return X
@@ -164,6 +168,8 @@ def count_word_chunk(texts, lowercase, ngram_range):
 
 def count_string_chunk(texts, analyzer, ngram_range, lowercase):
     """Worker: (sorted feature names, counts) of one chunk with scikit-learn's analyzer."""
+    from sklearn.feature_extraction.text import CountVectorizer
+
     analyze = CountVectorizer(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=lowercase).build_analyzer()
     vocabulary = growing_vocabulary()
     ids, lengths = analyzed_ids(texts, analyze, vocabulary.__getitem__)
@@ -187,6 +193,8 @@ def _merge_sorted_names(lists) -> tuple[list[str], list[np.ndarray]]:
 
 def _stack_remapped(mats, colmaps, n_cols) -> sp.csr_matrix:
     """Chunks stacked row-wise, chunk columns renumbered (increasing maps keep indices sorted)."""
+    import scipy.sparse as sp
+
     offsets = np.cumsum([0] + [m.nnz for m in mats])
     indptr = np.concatenate([[0]] + [m.indptr[1:].astype(np.int64) + o for m, o in zip(mats, offsets)])
     index_dtype = np.int32 if max(n_cols, offsets[-1]) < 2**31 else np.int64
@@ -281,6 +289,8 @@ def kept_by_frequency(df, totals, n_docs, cfg) -> np.ndarray:
 
 
 def select_columns(X: sp.csr_matrix, kept: np.ndarray) -> sp.csr_matrix:
+    import scipy.sparse as sp
+
     if kept.size == X.shape[1]:
         return X
     new = np.full(X.shape[1], -1, dtype=np.int64)
@@ -321,6 +331,8 @@ def word_index_from_names(names, ngram_range):
 
 def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, columns, n_cols):
     """Worker: word counts of one chunk over a fitted vocabulary given as sorted n-gram keys."""
+    import scipy.sparse as sp
+
     rank = _TokenRank(zip(tokens, range(len(tokens))))
     ids, lengths = analyzed_ids(texts, _word_tokenizer(lowercase), rank.__getitem__)
     found, rows = ngram_keys(ids, lengths, ngram_range, base)
@@ -334,6 +346,8 @@ def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, colu
 
 
 def transform_string_chunk(texts, analyzer, ngram_range, lowercase, names):
+    from sklearn.feature_extraction.text import CountVectorizer
+
     vocabulary = dict(zip(names, range(len(names))))
     vec = CountVectorizer(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=lowercase, vocabulary=vocabulary)
     return vec.transform(texts).tocsr()

@@ -19,6 +19,10 @@ transforming run over contiguous chunks in worker processes (joblib, loky
 backend) and the chunks are merged exactly: the matrix, the vocabulary and the
 document frequencies are those of one scikit-learn pass, bit for bit (see
 :mod:`lintext.text.chunked_counts` for how).
+
+scikit-learn, SciPy and joblib load when a featurizer first counts or weighs texts, not when
+this module loads: a loaded model's vocabulary and document frequencies (all that the report
+and ``inspect`` read) come without them.
 """
 
 from __future__ import annotations
@@ -28,10 +32,6 @@ from numbers import Integral
 from pathlib import Path
 
 import numpy as np
-import scipy.sparse as sp
-from joblib import cpu_count, delayed
-from sklearn.feature_extraction.text import CountVectorizer, HashingVectorizer
-from sklearn.preprocessing import normalize as _normalize_rows
 
 from .chunked_counts import (
     count_string_chunk, count_word_chunk, df_arg, kept_columns, key_names, merge_string_chunks, merge_word_chunks,
@@ -82,6 +82,8 @@ class Featurizer:
     # ------------------------------------------------------------ fitting
 
     def fit_transform(self, texts) -> sp.csr_matrix:
+        import scipy.sparse as sp
+
         cfg = self.config
         texts = list(texts)
         self.n_documents = len(texts)
@@ -106,6 +108,8 @@ class Featurizer:
         return self
 
     def transform(self, texts) -> sp.csr_matrix:
+        import scipy.sparse as sp
+
         if self.document_frequency is None:
             raise RuntimeError("Featurizer is not fitted")
         texts = list(texts)
@@ -126,6 +130,8 @@ class Featurizer:
         """Weighted rows from raw counts over this featurizer's columns; in hashing mode
         (counts from :func:`hashed_counts`) the columns outside the document-frequency limits are
         dropped first. What :meth:`transform` does after counting."""
+        import scipy.sparse as sp
+
         if self.config.hashing:
             mask = np.zeros(counts.shape[1], dtype=counts.dtype)
             mask[self.used_columns] = 1
@@ -146,11 +152,15 @@ class Featurizer:
     # ------------------------------------------------------------ internals
 
     def _jobs_for(self, n_texts: int) -> int:
+        from joblib import cpu_count
+
         jobs = cpu_count() if self.n_jobs in (0, -1) else min(self.n_jobs, cpu_count())  # never more than the cores
         threshold = PARALLEL_MIN_DOCS if self.parallel_min_docs is None else self.parallel_min_docs
         return min(jobs, n_texts) if jobs > 1 and n_texts >= max(threshold, 2) else 1
 
     def _vectorizer(self, analyzer, ngram_range, vocabulary=None):
+        from sklearn.feature_extraction.text import CountVectorizer
+
         cfg = self.config
         kwargs = dict(analyzer=analyzer, ngram_range=tuple(ngram_range), lowercase=cfg.lowercase, dtype=np.float64)
         if vocabulary is not None:
@@ -161,6 +171,8 @@ class Featurizer:
 
     def _fit_single_pass(self, texts) -> sp.csr_matrix:
         """scikit-learn's CountVectorizer over all texts in this process (the reference)."""
+        import scipy.sparse as sp
+
         cfg = self.config
         blocks, names = [], []
         self._word = self._vectorizer("word", cfg.ngrams)
@@ -178,6 +190,9 @@ class Featurizer:
 
     def _fit_chunked(self, texts, jobs) -> sp.csr_matrix:
         """Count contiguous chunks in worker processes, then merge exactly (:mod:`lintext.text.chunked_counts`)."""
+        import scipy.sparse as sp
+        from joblib import delayed
+
         cfg = self.config
         chunks = split_contiguous(texts, jobs)
         tasks = [delayed(count_word_chunk)(c, cfg.lowercase, cfg.ngrams) for c in chunks]
@@ -209,6 +224,9 @@ class Featurizer:
         return sp.hstack(blocks, format="csr") if len(blocks) > 1 else blocks[0]
 
     def _transform_chunked(self, texts, jobs) -> sp.csr_matrix:
+        import scipy.sparse as sp
+        from joblib import delayed
+
         cfg = self.config
         chunks = split_contiguous(texts, jobs)
         word_names = self.feature_names[: self._n_word]
@@ -243,12 +261,18 @@ class Featurizer:
         return self._word, self._char
 
     def _hashed_counts(self, texts, jobs: int = 1) -> sp.csr_matrix:
+        import scipy.sparse as sp
+        from joblib import delayed
+
         if jobs > 1:
             parts = run_parallel([delayed(hashed_counts)(c, self.config) for c in split_contiguous(texts, jobs)], jobs)
             return sp.vstack(parts, format="csr")
         return hashed_counts(texts, self.config)
 
     def _weight(self, counts: sp.csr_matrix) -> sp.csr_matrix:
+        import scipy.sparse as sp
+        from sklearn.preprocessing import normalize
+
         X = counts.astype(np.float64).tocsr()
         X.sum_duplicates()  # sorted, so fit and transform sum in the same order
         w = self.config.weighting
@@ -261,7 +285,7 @@ class Featurizer:
                 X.data = 1.0 + np.log(X.data)
             X = (X @ sp.diags(self.idf())).tocsr()
         if self.config.normalize:
-            X = _normalize_rows(X, norm="l2", copy=False)
+            X = normalize(X, norm="l2", copy=False)
         X.sort_indices()
         return X
 
@@ -346,6 +370,8 @@ def _names_by_column(vocabulary: dict) -> list[str]:
 def hashed_counts(texts, cfg: FeaturizerConfig) -> sp.csr_matrix:
     """Hashed word (+ character) counts; stateless, so chunks can be counted anywhere (another
     process or machine) and stacked."""
+    from sklearn.feature_extraction.text import HashingVectorizer
+
     common = dict(n_features=cfg.hash_space, alternate_sign=False, norm=None, lowercase=cfg.lowercase)
     counts = HashingVectorizer(analyzer="word", ngram_range=cfg.ngrams, **common).transform(texts)
     if cfg.char_ngrams is not None:

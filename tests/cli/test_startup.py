@@ -1,0 +1,60 @@
+"""Start-up: ``lintext --help`` and ``lintext COMMAND --help`` load none of the heavy libraries.
+
+Each command imports what it needs inside its function, so asking for help costs only Python,
+typer and rich. The check runs the real app in a fresh interpreter and reads ``sys.modules``
+there (Python's own record of what was imported); timings live in scripts/bench_end_to_end.py.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+from lintext.cli import app
+
+from ..conftest import ROOT
+
+HEAVY = ("sklearn", "scipy", "numba", "matplotlib")
+
+CHECK = r"""
+import json, sys
+from lintext.cli import app
+for args in json.loads(sys.argv[1]):
+    try:
+        app(args, prog_name="lintext")
+    except SystemExit as exc:
+        assert exc.code in (0, None), (args, exc.code)
+heavy = sorted({name.split(".")[0] for name in sys.modules} & set(json.loads(sys.argv[2])))
+print("\nloaded: " + json.dumps(heavy))
+"""
+
+
+def commands() -> list[str]:
+    return sorted(c.name or c.callback.__name__ for c in app.registered_commands)
+
+
+def loaded_by(argument_lists: list[list[str]]) -> list[str]:
+    out = subprocess.run([sys.executable, "-c", CHECK, json.dumps(argument_lists), json.dumps(HEAVY)],
+                         capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert out.returncode == 0, out.stderr
+    return json.loads(out.stdout.rsplit("loaded: ", 1)[1])
+
+
+def test_help_imports_no_heavy_library():
+    assert loaded_by([["--help"]]) == []
+
+
+def test_every_command_help_imports_no_heavy_library():
+    names = commands()
+    assert {"train", "predict", "report", "sweep"} <= set(names)  # the app registered its commands
+    assert loaded_by([[name, "--help"] for name in names]) == []
+
+
+def test_the_check_sees_a_heavy_import():
+    # the same check on a command that does load scikit-learn: the subprocess must report it
+    out = subprocess.run([sys.executable, "-c", CHECK.replace("from lintext.cli import app",
+                                                              "from lintext.cli import app\nimport sklearn"),
+                          json.dumps([["--help"]]), json.dumps(HEAVY)], capture_output=True, text=True, cwd=ROOT,
+                         timeout=120)
+    assert "sklearn" in json.loads(out.stdout.rsplit("loaded: ", 1)[1])
