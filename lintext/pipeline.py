@@ -32,8 +32,8 @@ from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus
 from .text.split import split_dev
 from .text.store import FeatureStore
 
-# Progress callback: receives ``{"stage": ...}`` dictionaries (reading, featurizing, epoch,
-# evaluating, run, probe); the command line turns them into a display.
+# Progress callback: receives ``{"stage": ...}`` dictionaries (reading, featurizing, training,
+# epoch, evaluating, run, probe); the command line turns them into a display.
 Progress = Callable[[dict], None]
 
 
@@ -171,8 +171,8 @@ def build_model(
     test : optional test set, evaluated once at the end (never used in training).
     featurizer, options : configurations (objects or dictionaries of their fields).
     reader : how to read the files (format, text and label columns).
-    progress : called with ``{"stage": ...}`` dictionaries (reading,
-        featurizing, each epoch, evaluating).
+    progress : called with ``{"stage": ...}`` dictionaries as each phase starts (reading,
+        featurizing, training, evaluating the dev and the test set) and after each epoch.
 
     Returns
     -------
@@ -188,6 +188,7 @@ def build_model(
         data = (data, labels)
     topts = TrainOptions.from_mapping(options).validate()
     prep = prepare_data(data, dev, dev_fraction, featurizer, topts.seed, reader, n_jobs, report, options=topts)
+    report({"stage": "training", "documents": int(prep.X.shape[0]), "epochs": topts.epochs})
     result = fit(prep.X, prep.y, len(prep.labels), prep.X_dev, prep.y_dev, topts,
                  progress=lambda row: report({"stage": "epoch", **row}), sample_weight=prep.weights,
                  dev_weight=prep.dev_weights, label_names=prep.labels)
@@ -208,9 +209,11 @@ def build_model(
         model.info["explain"] = store_evidence(model, prep.store)
     else:
         model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
+    if prep.dev_set is not None:
+        report({"stage": "evaluating", "path": "the dev set", "set": "dev"})
     finish_with_dev(model, prep)
     if test is not None:
-        report({"stage": "evaluating", "path": str(test)})
+        report({"stage": "evaluating", "path": str(test), "set": "test"})
         test_set = as_corpus(test, reader=_unweighted(reader), min_labels=1)
         model.info["data"]["test"] = test_set.path
         model.info["metrics"]["test"] = evaluate(model, test_set)

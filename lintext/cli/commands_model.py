@@ -57,10 +57,15 @@ def train(
                             progress=display)
     finally:
         display.close()
-    from ..report.writer import write_report  # matplotlib loads only when a report is written
+    def report(folder, spinner):
+        from ..report.writer import write_report  # matplotlib loads only when a report is written
 
-    with status("Writing the model and its report", quiet):
-        where = model.save(out_dir, extra=None if no_report else (lambda folder: write_report(model, folder)), force=force)
+        if spinner is not None:
+            spinner.update("Writing the report")
+        write_report(model, folder)
+
+    with status("Writing the model", quiet) as spinner:
+        where = model.save(out_dir, extra=None if no_report else (lambda folder: report(folder, spinner)), force=force)
     print_training_summary(model)
     warn_about_inputs({"empty_texts": model.info["data"].get("empty_texts")}, quiet)
     out.print(f"model written to {where}", markup=False, soft_wrap=True)

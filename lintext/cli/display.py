@@ -37,6 +37,8 @@ class Display:
             self._stop_spinner()
             self.spinner = err.status(_SPINNER_TEXT[stage](event))
             self.spinner.start()
+        elif stage == "training":  # the bar from the start: the first epoch may include loading the kernels
+            self._bar("epoch", event["epochs"], 0, "")
         elif stage == "epoch":
             weighted = "weighted " if event.get("weighted_loss") else ""
             info = f"{weighted}train loss {event['train_loss']:.4f}"
