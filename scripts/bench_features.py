@@ -117,7 +117,7 @@ def cpu_accounting(config, texts, jobs) -> dict:
     With other programs busy on the machine, wall-clock ratios of the parallel
     rows understate what the code does on free cores; this records where the
     work goes (``main`` is serial: merging, names, weighting, pickling)."""
-    import lintext.features as features
+    import lintext.text.featurizer as features
 
     run, worker = features.run_parallel, []
 

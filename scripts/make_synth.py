@@ -13,6 +13,14 @@ same arguments give byte-identical output.
 
     python scripts/make_synth.py --documents 50000 --features 200000 --labels 50 \
         --length 20 --seed 0 --out /tmp/synth.csv
+    python scripts/make_synth.py --shape large --out /tmp/large.csv
+
+Named shapes (:data:`SHAPES`) fix every parameter at once; options given after
+``--shape`` override it.  ``large`` is shaped like a real corpus of news-length
+texts: about 50,000 documents and 60 labels that lintext's default featurizer
+(word 1-2-grams, ``min_df=2``) turns into about 300,000 features and about 90
+non-zeros per row, the word law steep enough (``zipf=1.25``) that the few most
+frequent words occur in most documents (the top one in about nine in ten).
 
 Output: CSV with the header ``text,label`` (``.tsv`` suffix: tab-separated,
 same header), readable by ``lintext.io.read_corpus``.  Other scripts import
@@ -32,6 +40,15 @@ import numpy as np
 _CONSONANTS = list("bdfgklmnprstvz") + ["ch", "sh", "th", "tr"]  # 18
 _VOWELS = list("aeiou")  # 5
 SYLLABLES = np.array([c + v for c in _CONSONANTS for v in _VOWELS])  # 90 syllables, two letters or more
+
+
+# Named shapes: the parameters of make_corpus. "large" (measured with the default featurizer on
+# the first 46,000 texts: 302,578 features, 93.8 non-zeros per row, the 5 most frequent
+# features in 70-92% of the documents; 21 MB of CSV for 60,000 texts).
+SHAPES = {
+    "default": {"documents": 50_000, "features": 200_000, "labels": 50, "length": 20.0, "zipf": 1.07},
+    "large": {"documents": 50_000, "features": 100_000, "labels": 60, "length": 70.0, "zipf": 1.25},
+}
 
 
 def invented_words(n: int, seed: int = 0) -> list[str]:
@@ -149,15 +166,20 @@ def _write(fh, delimiter, texts, labels):
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0], formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--documents", type=int, default=50_000, help="number of texts (default 50000)")
-    parser.add_argument("--features", type=int, default=200_000, help="invented vocabulary size (default 200000)")
-    parser.add_argument("--labels", type=int, default=50, help="number of labels (default 50)")
-    parser.add_argument("--length", type=float, default=20.0, help="mean tokens per text (default 20)")
+    parser.add_argument("--shape", choices=sorted(SHAPES), default="default",
+                        help="named set of the parameters below (default: default); options override it")
+    parser.add_argument("--documents", type=int, help="number of texts (default 50000)")
+    parser.add_argument("--features", type=int, help="invented vocabulary size (default 200000)")
+    parser.add_argument("--labels", type=int, help="number of labels (default 50)")
+    parser.add_argument("--length", type=float, help="mean tokens per text (default 20)")
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    parser.add_argument("--zipf", type=float, default=1.07, help="Zipf-Mandelbrot exponent (default 1.07)")
+    parser.add_argument("--zipf", type=float, help="Zipf-Mandelbrot exponent (default 1.07)")
     parser.add_argument("--topic-share", type=float, default=0.25, help="share of tokens from the label's topic words")
     parser.add_argument("--out", default="-", help="output file, .csv or .tsv; '-' for stdout (default)")
     args = parser.parse_args(argv)
+    for name, value in SHAPES[args.shape].items():
+        if getattr(args, name) is None:
+            setattr(args, name, value)
     started = time.perf_counter()
     try:
         texts, labels = make_corpus(
