@@ -60,10 +60,11 @@ def csv_cells(values) -> list[str]:
     if isinstance(values, np.ndarray) and values.dtype.kind == "f":
         return _float_cells(values)
     values = list(values)
-    if all(isinstance(v, str) for v in values):
-        if not any(c in "\0".join(values) for c in _QUOTE):
+    if set(map(type, values)) <= {str}:
+        joined = "\0".join(values)
+        if not any(c in joined for c in _QUOTE):
             return values
-        return [_quoted(v) for v in values]
+        return list(map(_quoted, values))
     return [_quoted(csv_value(v)) for v in values]
 
 
