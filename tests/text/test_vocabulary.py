@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from lintext.errors import ModelFileError
-from lintext.text.featurizer import VOCAB_HEADER, Featurizer, FeaturizerConfig
+from lintext.text.featurizer import Featurizer, FeaturizerConfig
+from lintext.text.vocabulary import VOCAB_HEADER
 
 STATE = {"config": FeaturizerConfig(ngrams=(1, 2)).to_json(), "n_documents": 9}
 
