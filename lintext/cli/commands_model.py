@@ -57,6 +57,7 @@ def train(
                             progress=display)
     finally:
         display.close()
+
     def report(folder, spinner):
         from ..report.writer import write_report  # matplotlib loads only when a report is written
 
