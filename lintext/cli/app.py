@@ -81,6 +81,7 @@ _plain_help()
 _one_line_usage_errors()
 app = typer.Typer(
     add_completion=False,
+    add_help_option=False,  # declared in main() below: see _help
     no_args_is_help=True,
     pretty_exceptions_enable=False,
     rich_markup_mode=None,
@@ -175,8 +176,17 @@ def _version(value: bool):
         raise typer.Exit()
 
 
+def _help(ctx: typer.Context, value: bool):
+    """``lintext --help``, declared here rather than by typer: typer coerces its own help option's
+    unset value (``None``) through pydantic, which ``lintext COMMAND --help`` then loads (50 ms)."""
+    if value and not ctx.resilient_parsing:
+        typer.echo(ctx.get_help(), color=ctx.color)
+        raise typer.Exit()
+
+
 @app.callback()
 def main(
     version: Annotated[bool, typer.Option("--version", callback=_version, is_eager=True, help="Print the version.")] = False,
+    show_help: Annotated[bool, typer.Option("--help", callback=_help, is_eager=True, help="Show this message and exit.")] = False,
 ):
     """Train, explain and use sparse linear text classifiers."""
