@@ -17,6 +17,7 @@ from .stats import bin_label, feature_table
 CSV_COLUMNS = ("column", "feature", "document_frequency", "frequency_bin", "update_count", "abs_update_sum",
                "weight_norm", "raw_weight_norm", "max_weight", "max_weight_label", "effective_step")
 
+
 def write_features_csv(table: dict, path: str | os.PathLike) -> Path:
     """Write a :func:`feature_table` as CSV (header :data:`CSV_COLUMNS`; missing numbers are empty cells).
 

@@ -41,6 +41,7 @@ def awkward_table(n: int = 4000, seed: int = 0) -> dict:
         "update_count": rng.integers(0, 100, n).astype(np.float64),
         "abs_update_sum": floats(),
         "weight_norm": floats(),
+        "raw_weight_norm": floats(),
         "max_weight": floats(),
         "max_weight_label": [TEXTS[i] for i in rng.integers(0, len(TEXTS), n)],
         "effective_step": floats(),
@@ -79,7 +80,7 @@ def test_features_csv_reads_back_bit_for_bit(tmp_path):
     assert [r["feature"] for r in rows] == table["feature"]
     assert [r["max_weight_label"] for r in rows] == table["max_weight_label"]
     assert [int(r["document_frequency"]) for r in rows] == table["document_frequency"].tolist()
-    for name in ("abs_update_sum", "weight_norm", "max_weight", "effective_step", "update_count"):
+    for name in ("abs_update_sum", "weight_norm", "raw_weight_norm", "max_weight", "effective_step", "update_count"):
         for cell, value in zip((r[name] for r in rows), table[name].tolist()):
             if math.isfinite(value):
                 # the same double, bit for bit (negative zero is written "0", which reads back as +0.0)
