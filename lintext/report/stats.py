@@ -227,15 +227,14 @@ def top_features(model, top: int = 10, label: str | None = None, table: dict | N
     orders = largest_per_column(keys, table["column"], top, [model.labels.index(name) for name in wanted])
     out = {}
     for name, order in zip(wanted, orders):
-        j = model.labels.index(name)
-        weights = coef[:, j] - table["weight_mean"]
+        weights = coef[order, model.labels.index(name)] - table["weight_mean"][order]  # only the rows shown
         out[name] = [{
             "feature": table["feature"][i] or f"column {int(table['column'][i])}",
             "column": int(table["column"][i]),
-            "weight": float(weights[i]),
+            "weight": float(weight),
             "document_frequency": int(table["document_frequency"][i]),
             "weight_norm": float(table["weight_norm"][i]),
-        } for i in order]
+        } for i, weight in zip(order, weights)]
     return out
 
 
