@@ -338,6 +338,10 @@ def table(results: dict) -> str:
                       f"{r['lintext_seconds']:.1f} s, {r['lintext_test_accuracy']:.4f}",
                       f"{r['sklearn_seconds']:.1f} s, {r['sklearn_test_accuracy']:.4f}", f"{r['ratio']:.2f}x",
                       f"<= {TARGET_E2E}x, acc >=", "yes" if ok else "NO"])
+        runs = r["runs"]
+        lines.append([r["corpus"], f"  medians of {len(runs['lintext_train'])} runs",
+                      f"{statistics.median(x['seconds'] for x in runs['lintext_train']):.1f} s",
+                      f"{statistics.median(x['seconds'] for x in runs['sklearn']):.1f} s", f"{r['median_ratio']:.2f}x", "", ""])
         for phase, seconds in r["lintext_phases"].items():
             theirs = r["sklearn_phases"].get(phase)
             lines.append([r["corpus"], f"  phase: {phase}", f"{seconds:.2f} s", "" if theirs is None else f"{theirs:.2f} s",
