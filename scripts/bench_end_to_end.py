@@ -11,8 +11,9 @@ Measured, with the issue "End to end faster than scikit-learn"'s targets:
 
 * **End to end**: ``lintext train TRAIN --test TEST --optimizer adagrad --epochs 5 --patience 0``
   (default featurizer, a dev tenth held out and scored each epoch, the report written) as one
-  process, against one process doing scikit-learn's same job: ``TfidfVectorizer(ngram_range=(1,
-  2), min_df=2)`` (the features of lintext's default featurizer) + ``SGDClassifier(loss="log_loss",
+  process, against one process doing scikit-learn's same job: ``TfidfVectorizer`` with the options
+  of lintext's default featurizer (word 1-2-grams, ``min_df=2``, ``sublinear_tf`` for its
+  ``log-tfidf``; :func:`tfidf_options`) + ``SGDClassifier(loss="log_loss",
   max_iter=5, tol=None, n_jobs=2)`` + predict. Wall time of each subprocess, run alternately
   ``--repeats`` times (the quickest of each is compared; all are kept), and the test accuracy of
   each (target: ratio <= 0.5 with accuracy at least as high).
@@ -143,7 +144,8 @@ def read(path):
     return [r["text"] for r in rows], [r["label"] for r in rows]
 texts, labels = read(sys.argv[1])
 t2 = time.perf_counter()
-vectorizer = TfidfVectorizer(ngram_range=(1, 2), min_df=2)  # lintext's default featurizer
+options = json.loads(sys.argv[3])  # the features of lintext's default featurizer
+vectorizer = TfidfVectorizer(**{**options, "ngram_range": tuple(options["ngram_range"])})
 X = vectorizer.fit_transform(texts)
 t3 = time.perf_counter()
 with warnings.catch_warnings():
@@ -195,6 +197,17 @@ print(json.dumps({"t0": t0, "imported": imported, "events": events, "built": bui
 """
 
 
+def tfidf_options() -> dict:
+    """scikit-learn's ``TfidfVectorizer`` options giving the features of lintext's default featurizer."""
+    from lintext.text.config import FeaturizerConfig
+
+    c = FeaturizerConfig()
+    if c.weighting not in ("tfidf", "log-tfidf") or c.char_ngrams is not None or c.hash_space is not None:
+        raise SystemExit(f"no TfidfVectorizer equivalent of the default featurizer {c}")
+    return {"ngram_range": list(c.ngrams), "min_df": c.min_df, "max_df": c.max_df, "max_features": c.max_features,
+            "lowercase": c.lowercase, "norm": "l2" if c.normalize else None, "sublinear_tf": c.weighting == "log-tfidf"}
+
+
 def lintext_command(train: Path, test: Path, out: Path) -> list[str]:
     script = Path(sys.executable).with_name("lintext")
     head = [str(script)] if script.exists() else [sys.executable, "-m", "lintext"]
@@ -244,7 +257,8 @@ def end_to_end(name: str, corpus: dict, repeats: int, folder: Path, log) -> dict
         seconds, _ = timed_run(lintext_command(corpus["train"], corpus["test"], model_dir))
         info = json.loads((model_dir / "model.json").read_text(encoding="utf-8"))
         cli.append({"seconds": seconds, "test_accuracy": info["metrics"]["test"]["accuracy"], "load": load()})
-        seconds, stdout = timed_run([sys.executable, "-c", SKLEARN_JOB, str(corpus["train"]), str(corpus["test"])])
+        seconds, stdout = timed_run([sys.executable, "-c", SKLEARN_JOB, str(corpus["train"]), str(corpus["test"]),
+                                     json.dumps(tfidf_options())])
         job = json.loads(stdout.strip().splitlines()[-1])
         job["phases"] = {"process start and exit": max(0.0, seconds - job["inside_seconds"]), **job["phases"]}
         sk.append({"seconds": seconds, **job, "load": load()})
