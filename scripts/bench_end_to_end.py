@@ -308,7 +308,8 @@ def floor_table(name: str, corpus: dict, epochs: int, log) -> list[dict]:
 
 
 def reading(path: Path, repeats: int = 5) -> dict:
-    from lintext.text.readers import read_corpus, split_dev
+    from lintext.text.readers import read_corpus
+    from lintext.text.split import split_dev
 
     read, split = [], []
     for _ in range(repeats):
