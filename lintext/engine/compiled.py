@@ -221,7 +221,7 @@ def score_examples_parallel(indptr, indices, data, y, order, start, stop, params
 def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_value, dscores, opt_code,
                lr, l2, params, sum_sq_grad, first_moment, second_moment, avg_sq_update, info,
                info_f, beta1, beta2, rho, epsilon, mark, g, moved, upcoming, n_up, active, n_active,
-               l1, shifted_grad_sum, ftrl_beta):
+               l1, shifted_grad_sum, ftrl_beta, avg_sum, l1_applied):
     """Rows ``touched[lo:hi]``: sum the batch gradient from the row's entries, in example order
     (none: zero), then take one step of the rule; ``mark >= 0``: then set ``last_step`` to it.
 
@@ -243,7 +243,11 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
 
     Meanwhile it prefetches the weights and state of the rows ``upcoming[:n_up]`` (the next
     batch's), spread evenly over its rows: all at once, the prefetches would queue for the
-    memory system and stall the processor.
+    memory system and stall the processor. The remedies' arrays the next batch reads
+    (``avg_sum`` of averaging, ``l1_applied`` of SGD's L1 penalty, FTRL's ``shifted_grad_sum``; zero
+    rows when off) are prefetched with them: unfetched, averaging's two passes over each row's
+    sums (its missed steps before the step, its new weights after) cost SGD about a third of
+    its epoch on fortunes.
 
     ``active[:n_active]`` (``n_active < n_labels``; SGD and AdaGrad only) lists the labels some
     example of the batch has a non-zero loss gradient for (the hinge loss has at most two per
@@ -284,6 +288,18 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 for l in range(0, n_labels, line):
                     prefetch(avg_sq_update, jn, l)
                 prefetch(avg_sq_update, jn, end)
+            if shifted_grad_sum.shape[0] > 0:
+                for l in range(0, n_labels, line):
+                    prefetch(shifted_grad_sum, jn, l)
+                prefetch(shifted_grad_sum, jn, end)
+            if avg_sum.shape[0] > 0:  # float64 whatever the weights' precision
+                for l in range(0, n_labels, 8):
+                    prefetch(avg_sum, jn, l)
+                prefetch(avg_sum, jn, end)
+            if l1_applied.shape[0] > 0:
+                for l in range(0, n_labels, line):
+                    prefetch(l1_applied, jn, l)
+                prefetch(l1_applied, jn, end)
         j = touched[s]
         reg = 0.0 if j == bias else l2
         a = row_start[s]
@@ -523,12 +539,13 @@ def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_exampl
     for c in prange(n_chunks):
         g = np.empty(n_labels)
         moved = np.empty(n_labels)
-        upcoming = np.empty(0, dtype=np.int64)
+        upcoming = np.empty(0, dtype=np.int64)  # nothing to prefetch
+        no_average = np.empty((0, n_labels))
         apply_rows((n_rows * c) // n_chunks, (n_rows * (c + 1)) // n_chunks, touched, decay1, decay2,
                    row_start, entry_example, entry_value, dscores, opt_code, lr, l2, params,
                    sum_sq_grad, first_moment, second_moment, avg_sq_update, info, info_f, beta1,
                    beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active, l1,
-                   shifted_grad_sum, ftrl_beta)
+                   shifted_grad_sum, ftrl_beta, no_average, params[:0])
 
 
 @njit(inline="always", **NO_REFCOUNT)
@@ -807,7 +824,8 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
         apply_rows(0, n_touched, touched, decays[0], decays[1], row_start, entry_example, entry_value,
                    dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                    avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark,
-                   scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, shifted_grad_sum, ftrl_beta)
+                   scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, shifted_grad_sum, ftrl_beta,
+                   avg_sum, l1_applied)
         if penalised:
             penalise_rows(n_touched, touched, l1_total[b], l1_applied, params, info_f)
         if averaging and t >= avg_from:
