@@ -347,6 +347,42 @@ def test_parallel_hinge_step_on_active_labels_is_identical(monkeypatch, name):
     assert p1.tobytes() == p2.tobytes() and s1.info.tobytes() == s2.info.tobytes() and l1 == l2_
 
 
+def _remedy_epochs(name, l1, threads=1):
+    X, y = random_problem(n=300, n_features=80, n_labels=6, density=0.08, seed=13)
+    code = optim.OPTIMIZERS[name].code
+    params = np.zeros((81, 6))
+    st = kernels.KernelState.new(80, 6, code, l1=l1 > 0 and name == "sgd", average=True)
+    weights = np.random.default_rng(2).uniform(0.5, 2.0, size=300)
+    rng = np.random.default_rng(5)
+    for _ in range(3):
+        _, finite = run_epoch(X.indptr, X.indices, X.data, y, rng.permutation(300), params, st, loss_code=0,
+                              optimizer_code=code, schedule_code=0, learning_rate=LRS[name], batch_size=4, l1=l1,
+                              example_weight=weights, avg_from=10, threads=threads)
+        assert finite
+    return params, st
+
+
+@pytest.mark.parametrize("name,l1", [("sgd", 0.01), ("adagrad", 0.0), ("adam", 0.0), ("ftrl", 0.01)])
+def test_prefetching_and_threads_leave_the_remedies_bits_alone(monkeypatch, name, l1):
+    # The remedies' arrays (averaging's sums, SGD's L1 record, FTRL's z) are prefetched with the
+    # next batch's rows at batch sizes up to PREFETCH_MAX_EXAMPLES. A prefetch is only a hint: a
+    # run without prefetching, and one whose batches all take the parallel path (which does not
+    # prefetch), must give the same bits in every array, statistics included.
+    runs = [_remedy_epochs(name, l1)]
+    with monkeypatch.context() as m:
+        m.setattr(kernels, "PREFETCH_MAX_EXAMPLES", 0)
+        runs.append(_remedy_epochs(name, l1))
+    with monkeypatch.context() as m:
+        m.setattr(kernels, "PARALLEL_MIN_WORK", 0)
+        runs.append(_remedy_epochs(name, l1, threads=2))
+    (p0, s0), others = runs[0], runs[1:]
+    assert np.abs(p0).max() > 1e-3 and np.abs(s0.avg_sum).max() > 1e-3  # it trained and averaged
+    for p, s in others:
+        assert p.tobytes() == p0.tobytes()
+        for key in ("avg_sum", "l1_applied", "shifted_grad_sum", "sum_sq_grad", "first_moment", "second_moment", "info"):
+            assert getattr(s, key).tobytes() == getattr(s0, key).tobytes(), key
+
+
 def test_parallel_path_is_taken_and_scores_match(monkeypatch):
     # The threshold decides: 0 sends every batch to the parallel functions (watched here).
     import lintext.engine.compiled as kc
