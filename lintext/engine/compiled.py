@@ -244,7 +244,7 @@ def score_examples_parallel(indptr, indices, data, y, order, start, stop, params
 def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_value, dscores, opt_code,
                lr, l2, params, sum_sq_grad, first_moment, second_moment, avg_sq_update, info,
                info_f, beta1, beta2, rho, epsilon, mark, g, moved, upcoming, n_up, active, n_active,
-               l1, shifted_grad_sum, ftrl_beta, avg_sum, l1_applied):
+               l1, shifted_grad_sum, ftrl_beta, avg_sum, l1_applied, average_gap, add_to_average):
     """Rows ``touched[lo:hi]``: sum the batch gradient from the row's entries, in example order
     (none: zero), then take one step of the rule; ``mark >= 0``: then set ``last_step`` to it.
 
@@ -261,20 +261,24 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     ``opt_code == FTRL`` is McMahan et al. (2013), Algorithm 1: ``sum_sq_grad`` is ``n``,
     ``shifted_grad_sum`` is ``z``; ``lr`` is ``alpha``, ``ftrl_beta`` is ``beta``, ``l1`` and ``l2``
     are ``lambda_1`` and ``lambda_2`` (0 on the bias); its branch comes after the other rules', so
-    they test nothing more than before. SGD's L1 penalty and averaging are passes of their own
-    after this one (:func:`penalise_rows`, :func:`average_rows`).
+    they test nothing more than before. SGD's L1 penalty is a pass of its own after this one
+    (:func:`penalise_rows`).
+
+    Averaging (``avg_sum`` has rows) adds to a row's sums, outside its rule's loop, first the
+    weights of its ``average_gap[s]`` missed steps (left here by :func:`prepare_batch` when
+    the catch-up did not move them), then, with ``add_to_average``, its new weights (without
+    it, :func:`average_rows` adds them after the L1 penalty): the same additions in the same
+    order as when they were passes of their own, made while the row is in the cache.
 
     Meanwhile it prefetches the weights of the rows ``upcoming[:n_up]`` (the next batch's),
     spread evenly over its rows: all at once, the prefetches would queue for the memory system
     and stall the processor. The remedies' arrays the next batch reads before its update
-    (``avg_sum`` of averaging, ``l1_applied`` of SGD's L1 penalty; zero rows when off) are
-    prefetched with them: unfetched, averaging's two passes over each row's sums (its missed
-    steps before the step, its new weights after) cost SGD about a third of its epoch on
-    fortunes. The optimizer state (FTRL's ``shifted_grad_sum`` included), read only here, is
-    prefetched ``STATE_AHEAD`` rows ahead within the batch instead: fetched a batch ahead, a
-    batch of 8 with two or three model-sized arrays no longer fits the L2 cache beside the
-    current one, and its lines were evicted before use (AdaGrad 10-15% faster on the large
-    shape at 60 labels, Adam 3-5%).
+    (``l1_applied`` of SGD's L1 penalty; zero rows when off) are prefetched with them. The
+    optimizer state (FTRL's ``shifted_grad_sum`` included) and averaging's ``avg_sum``, read
+    only here, are prefetched ``STATE_AHEAD`` rows ahead within the batch instead: fetched a
+    batch ahead, a batch of 8 with two or three model-sized arrays no longer fits the L2 cache
+    beside the current one, and its lines were evicted before use (AdaGrad 10-15% faster on
+    the large shape at 60 labels, Adam 3-5%; with averaging, SGD and AdaGrad 15-20%).
 
     ``active[:n_active]`` (``n_active < n_labels``; SGD and AdaGrad only) lists the labels some
     example of the batch has a non-zero loss gradient for (the hinge loss has at most two per
@@ -314,6 +318,10 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 for l in range(0, n_labels, line):
                     prefetch(shifted_grad_sum, jf, l)
                 prefetch(shifted_grad_sum, jf, end)
+            if avg_sum.shape[0] > 0:  # float64 whatever the weights' precision
+                for l in range(0, n_labels, 8):
+                    prefetch(avg_sum, jf, l)
+                prefetch(avg_sum, jf, end)
         if s < lo:
             continue
         owed += n_up
@@ -324,15 +332,15 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             for l in range(0, n_labels, line):
                 prefetch(params, jn, l)
             prefetch(params, jn, end)
-            if avg_sum.shape[0] > 0:  # float64 whatever the weights' precision
-                for l in range(0, n_labels, 8):
-                    prefetch(avg_sum, jn, l)
-                prefetch(avg_sum, jn, end)
             if l1_applied.shape[0] > 0:
                 for l in range(0, n_labels, line):
                     prefetch(l1_applied, jn, l)
                 prefetch(l1_applied, jn, end)
         j = touched[s]
+        if average_gap[s] > 0:  # averaging: the weights of its missed steps (prepare_batch)
+            c = float(average_gap[s])
+            for l in range(n_labels):
+                avg_sum[j, l] += c * params[j, l]
         reg = 0.0 if j == bias else l2
         a = row_start[s]
         b = row_start[s + 1]
@@ -366,6 +374,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 info_f[j, STAT_SUM] += s0 + s1
             if mark >= 0:
                 info[j, LAST] = mark
+            if add_to_average:
+                for l in range(n_labels):
+                    avg_sum[j, l] += params[j, l]
             continue
         if b > a:
             r = entry_example[a]
@@ -500,6 +511,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             info_f[j, STAT_SUM] += (s0 + s1) + (s2 + s3)
         if mark >= 0:
             info[j, LAST] = mark
+        if add_to_average:  # averaging: the row's new weights (else average_rows, after the L1 penalty)
+            for l in range(n_labels):
+                avg_sum[j, l] += params[j, l]
 
 
 @njit(**NO_REFCOUNT)
@@ -543,6 +557,20 @@ def average_rows(n_touched, touched, params, avg_sum):
 
 
 @njit(**NO_REFCOUNT)
+def add_average_gaps(n_touched, touched, average_gap, params, avg_sum):
+    """Iterate averaging: the weights of the missed steps :func:`prepare_batch` left to
+    :func:`apply_rows` (``average_gap[s]`` steps for row ``touched[s]``), for a batch stopped
+    before its update."""
+    n_labels = params.shape[1]
+    for s in range(n_touched):
+        if average_gap[s] > 0:
+            j = touched[s]
+            c = float(average_gap[s])
+            for l in range(n_labels):
+                avg_sum[j, l] += c * params[j, l]
+
+
+@njit(**NO_REFCOUNT)
 def active_labels(loss_code, opt_code, dscores, n_ex, active):
     """Labels with a non-zero loss gradient in some example of the batch (rows ``:n_ex`` of
     ``dscores``) into ``active``; returns their number, or ``n_labels`` (every label, the
@@ -565,19 +593,19 @@ def active_labels(loss_code, opt_code, dscores, n_ex, active):
 def apply_rows_parallel(n_rows, touched, decay1, decay2, row_start, entry_example, entry_value, dscores,
                         opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                         avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark, active,
-                        n_active, l1, shifted_grad_sum, ftrl_beta, n_chunks):
+                        n_active, l1, shifted_grad_sum, ftrl_beta, avg_sum, average_gap, add_to_average,
+                        n_chunks):
     """:func:`apply_rows` over ``n_chunks`` contiguous chunks of the rows in parallel."""
     n_labels = params.shape[1]
     for c in prange(n_chunks):
         g = np.empty(n_labels)
         moved = np.empty(n_labels)
         upcoming = np.empty(0, dtype=np.int64)  # nothing to prefetch
-        no_average = np.empty((0, n_labels))
         apply_rows((n_rows * c) // n_chunks, (n_rows * (c + 1)) // n_chunks, touched, decay1, decay2,
                    row_start, entry_example, entry_value, dscores, opt_code, lr, l2, params,
                    sum_sq_grad, first_moment, second_moment, avg_sq_update, info, info_f, beta1,
                    beta2, rho, epsilon, mark, g, moved, upcoming, 0, active, n_active, l1,
-                   shifted_grad_sum, ftrl_beta, no_average, params[:0])
+                   shifted_grad_sum, ftrl_beta, avg_sum, params[:0], average_gap, add_to_average)
 
 
 @njit(inline="always", **NO_REFCOUNT)
@@ -688,7 +716,7 @@ def flush_rows_parallel(n_rows, now, t0, cum, opt_code, lr, l2, params, sum_sq_g
 def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, powers, opt_code, lr,
                   l2, beta1, beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed,
                   decays, row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums,
-                  avg_sum, avg_from):
+                  avg_sum, avg_from, average_gap):
     """Steps 1 and 2 of the batch ``order[start:stop]`` (step ``t``).
 
     1. Its distinct rows (``touched``; the bias last), each caught up to step ``t`` where L2
@@ -700,8 +728,9 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
 
     Meanwhile the records of the next batch's rows (examples ``stop .. ahead - 1``) are
     prefetched and their rows listed in ``upcoming``. Returns ``(n_touched, n_upcoming)``.
-    With averaging (``avg_sum`` has rows) a row's missed steps are added to its average before
-    its catch-up (:func:`average_missed`).
+    With averaging (``avg_sum`` has rows) a row's missed steps are added to its average: here,
+    before its catch-up, when L2 shrinks its weights (:func:`average_missed`), else by
+    :func:`apply_rows` before its step (``average_gap[s]`` missed steps; 0 for none).
     """
     n_labels = params.shape[1]
     n_rows = params.shape[0]
@@ -731,12 +760,16 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
                     k = t - last
                     s = n_touched
                     missed[s] = 0
+                    average_gap[s] = 0
                     decays[0, s] = 1.0
                     decays[1, s] = 1.0
                     if k > 0:
-                        if averaging:
+                        if averaging and kind == CATCH_UP_WEIGHTS:  # before the L2 shrinkage below
                             average_missed(j, last, t, t0, kind, opt_code, cum, shrink_sums, lr, l2, epsilon,
                                            params, sum_sq_grad, avg_sum, avg_from)
+                        elif averaging:  # the weights did not move: added by apply_rows, before the step
+                            m = last if last > avg_from else avg_from
+                            average_gap[s] = t - m if t > m else 0
                         if kind == CATCH_UP_STATE:
                             missed[s] = k
                             if k < n_powers:
@@ -767,6 +800,7 @@ def prepare_batch(indptr, indices, data, order, start, stop, t, t0, kind, cum, p
                 n_entries += 1
         touched[n_touched] = bias
         missed[n_touched] = 0
+        average_gap[n_touched] = 0
         decays[0, n_touched] = 1.0
         decays[1, n_touched] = 1.0
         bias_slot = n_touched
@@ -814,7 +848,8 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                  lr0, decay, l2, beta1, beta2, rho, epsilon, batch_size, lazy, step, kind, cum,
                  powers, scores, dscores, example_loss, touched, missed, decays, row_start,
                  entry_row, entry_example, entry_value, upcoming, active, scratch, example_weight,
-                 l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from):
+                 l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from,
+                 average_gap):
     """Run the batches of one epoch on this thread; see :mod:`lintext.engine.kernels`, which also
     allocates the work space and ends the epoch (flush). Returns ``(loss_sum, new_step, finite)``.
     ``l1_total[b]`` is the cumulative L1 penalty after the epoch's step ``b`` (empty: no L1);
@@ -839,7 +874,8 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
         n_touched, n_up = prepare_batch(
             indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2,
             beta1, beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays,
-            row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums, avg_sum, avg_from)
+            row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums, avg_sum, avg_from,
+            average_gap)
         score_examples(indptr, indices, data, y, order, start, start, stop, params, loss_code,
                        1.0 / n_ex, scores, dscores, example_loss, example_weight)
         total = 0.0  # the batch's losses in example order (as run_batch_threads sums them)
@@ -849,19 +885,21 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                 if lazy:  # the rows' state decay is still owed
                     for s in range(n_touched):
                         info[touched[s], LAST] = t - missed[s]
+                    add_average_gaps(n_touched, touched, average_gap, params, avg_sum)
                 return loss_sum + total, t + 1, False
         loss_sum += total
         n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
         mark = t + 1 if lazy else -1
+        add_now = averaging and t >= avg_from and not penalised  # with L1: after the penalty
         apply_rows(0, n_touched, touched, decays[0], decays[1], row_start, entry_example, entry_value,
                    dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                    avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark,
                    scratch[0], scratch[1], upcoming, n_up, active, n_active, l1, shifted_grad_sum, ftrl_beta,
-                   avg_sum, l1_applied)
+                   avg_sum, l1_applied, average_gap, add_now)
         if penalised:
             penalise_rows(n_touched, touched, l1_total[b], l1_applied, params, info_f)
-        if averaging and t >= avg_from:
-            average_rows(n_touched, touched, params, avg_sum)
+            if averaging and t >= avg_from:
+                average_rows(n_touched, touched, params, avg_sum)
     return loss_sum, step + n_batches, True
 
 
@@ -872,7 +910,7 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
                       powers, scores, dscores, example_loss, touched, missed, decays, row_start,
                       entry_row, entry_example, entry_value, upcoming, active, example_weight, l1,
                       l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from,
-                      n_threads):
+                      average_gap, n_threads):
     """Batch ``b`` of :func:`epoch_kernel`, with its scoring split over its examples and its
     update over its rows on ``n_threads`` threads (the same results, bit for bit). Returns
     ``(loss_sum, finite)``."""
@@ -885,7 +923,7 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
     n_touched, _ = prepare_batch(
         indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2, beta1,
         beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays, row_start,
-        entry_row, entry_example, entry_value, upcoming, stop, shrink_sums, avg_sum, avg_from)
+        entry_row, entry_example, entry_value, upcoming, stop, shrink_sums, avg_sum, avg_from, average_gap)
     score_examples_parallel(indptr, indices, data, y, order, start, stop, params, loss_code,
                             1.0 / n_ex, scores, dscores, example_loss, example_weight, min(n_ex, 4 * n_threads))
     total = 0.0
@@ -895,17 +933,21 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
             if lazy:
                 for s in range(n_touched):
                     info[touched[s], LAST] = t - missed[s]
+                add_average_gaps(n_touched, touched, average_gap, params, avg_sum)
             return total, False
     n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
     mark = t + 1 if lazy else -1
+    penalised = l1_total.shape[0] > 0
+    add_now = avg_sum.shape[0] > 0 and t >= avg_from and not penalised  # with L1: after the penalty
     apply_rows_parallel(n_touched, touched, decays[0], decays[1], row_start, entry_example,
                         entry_value, dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment,
                         second_moment, avg_sq_update, info, info_f, beta1, beta2, rho, epsilon,
-                        mark, active, n_active, l1, shifted_grad_sum, ftrl_beta, min(n_touched, 8 * n_threads))
-    if l1_total.shape[0] > 0:
+                        mark, active, n_active, l1, shifted_grad_sum, ftrl_beta, avg_sum, average_gap, add_now,
+                        min(n_touched, 8 * n_threads))
+    if penalised:
         penalise_rows(n_touched, touched, l1_total[b], l1_applied, params, info_f)
-    if avg_sum.shape[0] > 0 and t >= avg_from:
-        average_rows(n_touched, touched, params, avg_sum)
+        if avg_sum.shape[0] > 0 and t >= avg_from:
+            average_rows(n_touched, touched, params, avg_sum)
     return total, True
 
 

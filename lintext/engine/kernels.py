@@ -171,6 +171,7 @@ class WorkSpace(NamedTuple):
     scratch: np.ndarray
     shrink_sums: np.ndarray
     l1_total: np.ndarray
+    average_gap: np.ndarray
 
 
 def flush(params, state: KernelState, *, optimizer_code: int, beta1: float, beta2: float, rho: float,
@@ -299,7 +300,7 @@ def _epoch_one_thread(rows: Rows, params, state: KernelState, s: Settings, w: Wo
         s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched, w.missed, w.decays,
         w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active, w.scratch, r.example_weight,
         r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta, w.shrink_sums, state.avg_sum,
-        r.avg_from)
+        r.avg_from, w.average_gap)
 
 
 def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, n_threads: int,
@@ -317,7 +318,7 @@ def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: Wor
             s.batch_size, s.lazy, s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched,
             w.missed, w.decays, w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active,
             r.example_weight, r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta,
-            w.shrink_sums, state.avg_sum, r.avg_from, n_threads)
+            w.shrink_sums, state.avg_sum, r.avg_from, w.average_gap, n_threads)
         loss_sum += total
         if not finite:
             return loss_sum, s.step + b + 1, False
@@ -427,7 +428,8 @@ def _work_space(lengths, params, s: Settings, prefetch=True, remedies: Remedies 
         row_start=np.zeros(max_rows + 1, dtype=np.int64), entry_row=np.empty(cap + width, dtype=np.int64),
         entry_example=np.empty(cap + width, dtype=np.int64), entry_value=np.empty(cap + width),
         upcoming=np.empty(upcoming, dtype=np.int64), active=np.empty(n_labels, dtype=np.int64),
-        scratch=np.empty((2, n_labels)), shrink_sums=shrink_sums, l1_total=l1_total)
+        scratch=np.empty((2, n_labels)), shrink_sums=shrink_sums, l1_total=l1_total,
+        average_gap=np.zeros(max_rows, dtype=np.int64))
 
 
 def decision_scores(indptr, indices, data, params, threads: int | None = 1) -> np.ndarray:
