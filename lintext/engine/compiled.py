@@ -275,10 +275,12 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     and stall the processor. The remedies' arrays the next batch reads before its update
     (``l1_applied`` of SGD's L1 penalty; zero rows when off) are prefetched with them. The
     optimizer state (FTRL's ``shifted_grad_sum`` included) and averaging's ``avg_sum``, read
-    only here, are prefetched ``STATE_AHEAD`` rows ahead within the batch instead: fetched a
-    batch ahead, a batch of 8 with two or three model-sized arrays no longer fits the L2 cache
-    beside the current one, and its lines were evicted before use (AdaGrad 10-15% faster on
-    the large shape at 60 labels, Adam 3-5%; with averaging, SGD and AdaGrad 15-20%).
+    only here, are prefetched ``STATE_AHEAD`` rows ahead within the batch instead, whatever
+    its size and thread: fetched a batch ahead, a batch of 8 with two or three model-sized
+    arrays no longer fits the L2 cache beside the current one, and its lines were evicted
+    before use (AdaGrad 10-15% faster on the large shape at 60 labels, Adam 3-5%; with
+    averaging, SGD and AdaGrad 15-20%; at batch sizes 64 and 256, where nothing was
+    prefetched, RMSProp and AdaGrad 10-20%). The rows' records are prefetched with their weights.
 
     ``active[:n_active]`` (``n_active < n_labels``; SGD and AdaGrad only) lists the labels some
     example of the batch has a non-zero loss gradient for (the hinge loss has at most two per
@@ -294,7 +296,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     end = n_labels - 1
     fetched = 0
     owed = 0  # n_up prefetches spread over hi - lo rows, without a division per row
-    ahead = STATE_AHEAD if upcoming.shape[0] > 0 else 0
+    ahead = STATE_AHEAD
     for s in range(lo - ahead, hi):
         if s + ahead < hi and ahead > 0:  # the state of the row STATE_AHEAD rows on
             jf = touched[s + ahead]
@@ -329,6 +331,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             owed -= hi - lo
             jn = upcoming[fetched]
             fetched += 1
+            prefetch(info, jn, 0)  # its record, read first by the next batch
             for l in range(0, n_labels, line):
                 prefetch(params, jn, l)
             prefetch(params, jn, end)
