@@ -5,9 +5,9 @@ scikit-learn, side by side in one run.
 Corpora (``--corpora``): ``synthetic`` (``make_synth.make_corpus``: 50,000 training and 10,000
 test texts over 200,000 invented words and 50 labels), featurized by lintext's ``Featurizer``
 with word 1-2-grams keeping every feature (``min_df=1``: about 780,000 columns); ``large``, the
-large shape of ``make_synth`` (50,000 training texts of about 70 words, 60 labels, a steep word
-law: with the default featurizer about 320,000 features, 94 non-zeros per row, the most frequent
-feature in nine documents in ten); and the real fortunes corpus
+large shape of ``make_synth`` (``SHAPES["large"]``: 50,000 training texts of about 70 words, 60
+labels, a steep word law: with the default featurizer about 300,000 features, 94 non-zeros per
+row, the most frequent feature in nine documents in ten); and the real fortunes corpus
 (``../shared/tools/fortunes_corpus.sh``, about 15,000 texts, 43 labels; 80/20 split) with the
 default featurizer.
 
@@ -87,7 +87,7 @@ from lintext.engine import optimizers as optim  # noqa: E402
 from lintext.engine.options import TrainOptions  # noqa: E402
 from lintext.engine.trainer import fit  # noqa: E402
 from lintext.text.featurizer import Featurizer, FeaturizerConfig  # noqa: E402
-from make_synth import make_corpus  # noqa: E402
+from make_synth import SHAPES, make_corpus  # noqa: E402
 
 FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
 FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
@@ -97,8 +97,6 @@ OPTIMIZERS = ("sgd", "adagrad", "adadelta", "rmsprop", "adam")
 # model at 50 labels, far larger than the caches); fortunes uses the default featurizer.
 CONFIGS = {"synthetic": FeaturizerConfig(min_df=1), "large": FeaturizerConfig(), "fortunes": FeaturizerConfig()}
 CORPORA = tuple(CONFIGS)
-# make_synth's large shape (shaped like a real corpus of 51,000 news-length texts, 58 labels).
-LARGE_SHAPE = {"features": 100_000, "labels": 60, "length": 70.0, "zipf": 1.25}
 LOSSES = ("softmax", "hinge")
 TARGET_E2E, TARGET_MEMORY, TARGET_COMPILE = 0.5, 1.5, 10.0
 
@@ -122,8 +120,10 @@ def synthetic_corpus(documents, test_documents, features, labels, **shape):
     return {"train": (texts[:documents], names[:documents]), "test": (texts[documents:], names[documents:])}
 
 
-def large_corpus(documents, test_documents):
-    return synthetic_corpus(documents, test_documents, **LARGE_SHAPE)
+def large_corpus(test_documents):
+    """make_synth's large shape (as scripts/bench_end_to_end.py builds it: its texts, then the test texts)."""
+    shape = dict(SHAPES["large"])
+    return synthetic_corpus(shape.pop("documents"), test_documents, shape.pop("features"), shape.pop("labels"), **shape)
 
 
 def fortunes_corpus(log):
@@ -526,7 +526,7 @@ def main(argv=None) -> int:
         if name == "synthetic":
             corpora[name] = synthetic_corpus(args.documents, args.test_documents, args.features, args.labels)
         elif name == "large":
-            corpora[name] = large_corpus(args.documents, args.test_documents)
+            corpora[name] = large_corpus(args.test_documents)
         else:
             corpora[name] = fortunes_corpus(log)
     matrices = {}
