@@ -67,9 +67,10 @@ model-sized array; and fortunes, 43 labels, 16 MB):
 
 * Memory. A touched row is 6 to 9 cache lines per model-sized array, scattered; per epoch SGD
   moves one such array (about 0.8x the SciPy floor on the large shape), AdaGrad and RMSProp
-  two (1.4-1.6x), Adam and AdaDelta three (2-2.2x), averaging one more. A quarter of AdaGrad's
-  samples sit on the prefetch instructions: the core's outstanding misses are all in use.
-  ``precision="float32"`` halves the lines (AdaGrad 1.0x, Adam 1.4x there).
+  two (1.3-1.5x), Adam and AdaDelta three (2.0-2.2x), averaging one more (SGD 1.3x). A
+  quarter to a third of the samples sit on the prefetch instructions: the core's outstanding
+  misses are all in use. ``precision="float32"`` halves the lines (AdaGrad 0.9x, Adam 1.4x,
+  AdaDelta 1.35x there).
 * The divider. A square root and a division per weight share one divider, about 4 cycles a
   weight (1.2 ns measured; 1.45 ns at 43 labels, whose last 3 go scalar): 7% of AdaGrad's
   epoch on the large shape, 11-17% on fortunes, whose model sits in the L3 cache and whose
