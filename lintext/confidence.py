@@ -26,6 +26,8 @@ import math
 
 import numpy as np
 
+from .errors import ConfigError
+
 ECE_BINS = 15
 TEMPERATURE_BOUNDS = (0.05, 20.0)  # searched range of T; a fit that ends on a bound is flagged
 COVERAGE_THRESHOLDS = (0.0, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 0.95, 0.99)
@@ -204,6 +206,13 @@ def threshold_for_accuracy(confidence: np.ndarray, correct: np.ndarray, target: 
 
 
 # ---------------------------------------------------------------- one record for a model
+
+
+def check_probability(option: str, value) -> float:
+    """A probability threshold strictly between 0 and 1 (``--min-probability``, ``--target-accuracy``)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        raise ConfigError(option, value, "must be a probability above 0 and below 1")
+    return float(value)
 
 
 def calibration_record(scores: np.ndarray, y: np.ndarray, bins: int = ECE_BINS) -> dict:

@@ -29,6 +29,7 @@ from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_dat
 
 from .engine.options import TrainOptions
 from .engine.trainer import fit
+from .confidence import calibration_record
 from .model import softmax
 
 DEFAULTS = TrainOptions()  # one source of defaults: the command line's
@@ -38,8 +39,9 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
     """Sparse linear classifier trained by lintext's engine.
 
     Parameters mirror :class:`lintext.engine.options.TrainOptions`, with the same defaults as
-    ``lintext train`` (plain SGD, 50 epochs, early stopping with patience 5 on a stratified
-    ``validation_fraction`` of the rows); see there for their meaning. ``learning_rate=None``
+    ``lintext train`` (the hinge by plain SGD, 50 epochs, early stopping on macro-F1 with patience 15
+    on a stratified ``validation_fraction`` of the rows, then a refit on every row); see there for
+    their meaning. ``learning_rate=None``
     takes the optimizer's default. ``featurizer``: ``None`` (X is a feature matrix), or ``True``
     or a dict of featurizer options (X is a list of raw texts, featurized inside).
 
@@ -50,7 +52,9 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         models: the transpose of ``coef`` in a model directory's ``weights.npz`` (features by
         labels, one row per feature, the layout the engine trains).
     intercept_ : array (n_classes,).
-    history_ : per-epoch records.
+    history_ : per-epoch records (of the first pass, when there was a refit).
+    temperature_ : the temperature fitted on the ``validation_fraction`` rows (``None`` without them);
+        ``predict_proba`` is ``softmax(scores / temperature_)``.
     n_features_in_ : number of input columns (with ``featurizer``: of the fitted featurizer's output).
     featurizer_ : with ``featurizer``, the fitted :class:`~lintext.text.featurizer.Featurizer`.
     """
@@ -59,7 +63,7 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
                  schedule=DEFAULTS.schedule, epochs=DEFAULTS.epochs, batch_size=DEFAULTS.batch_size, l2=DEFAULTS.l2,
                  early_stopping=True, validation_fraction=0.1, patience=DEFAULTS.patience, seed=DEFAULTS.seed,
                  featurizer=None, average=DEFAULTS.average, l1=DEFAULTS.l1, label_weights=DEFAULTS.label_weights,
-                 stop_metric=DEFAULTS.stop_metric):
+                 stop_metric=DEFAULTS.stop_metric, refit=DEFAULTS.refit):
         self.loss = loss
         self.optimizer = optimizer
         self.learning_rate = learning_rate
@@ -76,6 +80,7 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.l1 = l1
         self.label_weights = label_weights
         self.stop_metric = stop_metric
+        self.refit = refit
 
     def fit(self, X, y):
         if self.featurizer is not None:
@@ -102,7 +107,7 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
                                schedule=self.schedule, epochs=self.epochs, batch_size=self.batch_size, l2=self.l2,
                                patience=self.patience if self.early_stopping else 0, seed=self.seed,
                                average=self.average, l1=self.l1, label_weights=self.label_weights,
-                               stop_metric=self.stop_metric)
+                               stop_metric=self.stop_metric, refit=self.refit)
         options.validate()
         X_dev = y_dev = None
         counts = np.bincount(codes)
@@ -116,6 +121,10 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.coef_ = np.ascontiguousarray(result.coef.T)
         self.intercept_ = result.intercept.copy()
         self.history_ = result.history
+        self.temperature_ = None
+        if X_dev is not None:  # calibrated on dev by the weights its scores describe (before a refit)
+            coef, intercept = (result.coef, result.intercept) if result.refit is None else (result.dev_coef, result.dev_intercept)
+            self.temperature_ = calibration_record(np.asarray(X_dev @ coef) + intercept, y_dev)["temperature"]
         return self
 
     def __sklearn_tags__(self):
@@ -141,11 +150,13 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         return self.classes_[scores.argmax(axis=1)]
 
     def _has_probabilities(self):
-        return self.loss == "softmax"
+        return self.loss == "softmax" or getattr(self, "temperature_", None) is not None
 
     @available_if(_has_probabilities)
     def predict_proba(self, X):
-        return softmax(self._scores(X))
+        """``softmax(scores / temperature_)``: the temperature fitted on the dev rows (Guo et al. 2017), 1 without
+        them; a hinge model has probabilities only so calibrated."""
+        return softmax(self._scores(X) / (self.temperature_ or 1.0))
 
     @available_if(_has_probabilities)
     def predict_log_proba(self, X):

@@ -199,6 +199,7 @@ def build_model(
         "history": result.history,
         "data": prep.description,
         "metrics": {},
+        **({} if result.refit is None else {"refit": result.refit}),
     }
     train_set = prep.train_set
     info["sparsity"] = zero_weights(result.coef, prep.featurizer.document_frequency)
@@ -211,7 +212,12 @@ def build_model(
         model.info["explain"] = training_extras(model, train_set.texts, train_set.sources, prep.X, train_labels=train_set.labels)
     if prep.dev_set is not None:
         report({"stage": "evaluating", "path": "the dev set", "set": "dev"})
-    finish_with_dev(model, prep)
+    # after a refit the dev documents are training data: the temperature, dev errors and metrics are the first pass's
+    first = model if result.refit is None else Model(prep.featurizer, stored_weights(result.dev_coef),
+                                                     result.dev_intercept, prep.labels, topts.loss)
+    first.info = model.info  # one record: what finish_with_dev writes lands in the model's
+    finish_with_dev(first, prep)
+    model.calibration = first.calibration
     if test is not None:
         report({"stage": "evaluating", "path": str(test), "set": "test"})
         test_set = as_corpus(test, reader=_unweighted(reader), min_labels=1)
@@ -238,13 +244,6 @@ def finish_with_dev(model: Model, prep: PreparedData) -> None:
     else:
         model.info["dev_errors"] = dev_errors(model, prep.dev_set, X_dev)
     model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
-
-
-def check_probability(option: str, value) -> float:
-    """A probability threshold strictly between 0 and 1 (``--min-probability``, ``--target-accuracy``)."""
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
-        raise ConfigError(option, value, "must be a probability above 0 and below 1")
-    return float(value)
 
 
 UNKNOWN_LABELS = ("count", "skip")
@@ -286,7 +285,7 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
     of the model's probability).
     """
     if target_accuracy is not None:
-        check_probability("--target-accuracy", target_accuracy)
+        confidence.check_probability("--target-accuracy", target_accuracy)
         require_calibration(model, "--target-accuracy")
     if is_store_data(data):  # featurized by the model's featurizer (checked), shard by shard, few numbers per row
         y_true, y_pred, names, unknown_counts, (plain, own) = store_evaluation(model, data, unknown_labels)
@@ -368,7 +367,7 @@ def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 2
     if not 1 <= top <= len(model.labels):
         raise ConfigError("--top-labels", top, f"must be between 1 and the number of labels ({len(model.labels)})")
     if min_probability is not None:
-        check_probability("--min-probability", min_probability)
+        confidence.check_probability("--min-probability", min_probability)
         require_calibration(model, "--min-probability")
     value = "probability" if model.has_probabilities else "score"
     with_id = reader is not None and reader.id_column is not None

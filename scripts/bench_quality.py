@@ -63,16 +63,16 @@ FOLDER = BENCH / "quality"
 FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
 OUT = ROOT / "bench-results" / "quality.json"
 CORPORA = ("demo", "fortunes", "manpages", "synthetic")
-# Candidate defaults measured with --candidates: featurizer and training options (the rest the defaults).
-OLD = {"weighting": "tfidf"}  # the featurizer's default before the defaults were chosen again
+# Candidate defaults measured with --candidates: training options (the rest the defaults).
+BEFORE = {"loss": "softmax", "learning_rate": 3.0, "average": 2, "stop_metric": "dev-loss", "patience": 5}
 CANDIDATES = {
-    "before: sgd 3, tfidf": {"featurizer": OLD, "options": {"average": 0}},
-    "sgd 3, no averaging": {"options": {"average": 0}},
-    "sgd 3, avg from 1": {"options": {"average": 1}},
-    "sgd 10, avg from 2": {"options": {"learning_rate": 10.0}},
-    "sgd 3, avg 2, balanced": {"options": {"label_weights": "balanced"}},
-    "hinge sgd 1, avg 1, stop F1": {"options": {"loss": "hinge", "learning_rate": 1.0, "average": 1,
-                                                "stop_metric": "macro-f1"}},
+    "before: softmax sgd 3, avg 2": {"options": {**BEFORE, "refit": False}},
+    "before, with refit": {"options": BEFORE},
+    "now, no refit": {"options": {"refit": False}},
+    "now, patience 5": {"options": {"patience": 5}},
+    "now, sgd 1": {"options": {"learning_rate": 1.0}},
+    "now, --loss softmax": {"options": {"loss": "softmax"}},
+    "now, balanced": {"options": {"label_weights": "balanced"}},
 }
 
 

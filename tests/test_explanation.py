@@ -41,7 +41,7 @@ def small(tmp_path_factory):
     # averaging): with today's this easy corpus is separated on dev, and no temperature is fitted.
     model = lintext.build_model(paths["train"], dev=paths["dev"], featurizer={"min_df": 1, "weighting": "tfidf"},
                                 options={"optimizer": "adagrad", "epochs": 4, "patience": 0, "learning_rate": 0.2,
-                                         "initial_sum_sq": 0.0, "average": 0})
+                                         "initial_sum_sq": 0.0, "average": 0, "loss": "softmax"})
     return model, paths
 
 

@@ -186,3 +186,25 @@ def test_feature_statistics_are_read_only_when_asked(trained, tmp_path):
     assert loaded.classify(texts) == model.classify(texts)  # prediction never reads them
     with pytest.raises(ModelFileError, match="feature_stats.npz: not a readable NumPy archive"):
         loaded.feature_stats
+
+
+def test_refit_keeps_the_first_pass_dev_record_and_saves_the_second_pass_weights(tmp_path):
+    # Definition (engine/trainer.py, "Refit"): the saved weights are trained on train and dev
+    # together; the dev metrics, dev errors and the temperature describe the first pass's weights,
+    # so they equal those of the same run without a refit.
+    from .conftest import small_corpus_rows, write_csv
+
+    rows = small_corpus_rows(60)
+    rows = [(t, ("billing" if i % 4 == 0 else lab)) for i, (t, lab) in enumerate(rows)]  # noise: dev not separated
+    train = write_csv(tmp_path / "train.csv", rows)
+    options = {"epochs": 40, "learning_rate": 0.5}
+    refit = lintext.build_model(train, options=options)
+    once = lintext.build_model(train, options={**options, "refit": False})
+    assert refit.info["refit"] == {"epochs": once.info["best_epoch"], "documents": len(rows)}
+    assert "refit" not in once.info
+    assert refit.info["metrics"]["dev"]["accuracy"] == once.info["metrics"]["dev"]["accuracy"]
+    assert refit.info["dev_errors"] == once.info["dev_errors"]
+    assert refit.calibration["temperature"] == once.calibration["temperature"] != 1.0
+    assert not np.allclose(refit.coef, once.coef)
+    loaded = Model.load(refit.save(tmp_path / "m"))
+    assert loaded.info["refit"] == refit.info["refit"]

@@ -21,7 +21,7 @@ from .options import (ClusterOpt, DataPath, DevFractionOpt, DevOpt, ForceOpt, Jo
 
 
 @command
-@training_options(exclude=("optimizer", "learning_rate"))
+@training_options(exclude=("optimizer", "learning_rate", "refit"))
 @featurizer_options
 @reader_options
 def sweep(
@@ -89,7 +89,7 @@ def sweep(
 
 @command
 @training_options(exclude=("learning_rate", "schedule", "decay", "plateau_factor", "epochs", "patience",
-                           "min_improvement", "stop_metric", "threads"))
+                           "min_improvement", "stop_metric", "threads", "refit"))
 @featurizer_options
 @reader_options
 def probe(

@@ -39,6 +39,9 @@ class Display:
             self.spinner.start()
         elif stage == "training":  # the bar from the start: the first epoch may include loading the kernels
             self._bar("epoch", event["epochs"], 0, "")
+        elif stage == "epoch" and event.get("refit"):
+            self._bar("refit on train and dev: epoch", event["epochs"], event["epoch"],
+                      f"train loss {event['train_loss']:.4f}")
         elif stage == "epoch":
             weighted = "weighted " if event.get("weighted_loss") else ""
             info = f"{weighted}train loss {event['train_loss']:.4f}"

@@ -176,7 +176,9 @@ _TRAINING_HELP = {
     "loss": "softmax (probabilities) or hinge (multiclass, Crammer-Singer).",
     "optimizer": "; ".join(f"{name}: {spec.summary}" for name, spec in OPTIMIZERS.items()) + ".",
     "learning_rate": "Step size (default: the optimizer's own: "
-                     + ", ".join(f"{n} {s.default_learning_rate:g}" for n, s in OPTIMIZERS.items() if s.has_learning_rate)
+                     + ", ".join(f"{n} {s.default_learning_rate:g}"
+                                 + (f" ({s.hinge_learning_rate:g} with the hinge)" if s.hinge_learning_rate else "")
+                                 for n, s in OPTIMIZERS.items() if s.has_learning_rate)
                      + ").",
     "schedule": "constant, inverse (1/t), inverse-sqrt (1/sqrt t), both sgd only, or plateau (multiply by "
                 "--plateau-factor after an epoch without improvement).",
@@ -205,6 +207,8 @@ _TRAINING_HELP = {
     "beta": "FTRL's beta in its per-feature step alpha / (beta + sqrt(sum of squared gradients)) (default 1).",
     "label_weights": "balanced (label k weighs n / (labels x n_k)) or label=weight pairs, e.g. billing=2,other=0.5; "
                      "the losses shown are then weighted.",
+    "refit": "After early stopping, train again on the training and dev documents together for the best "
+             "epoch count (dev scores stay those of the first pass).",
 }
 _TYPES = {"learning_rate": Optional[float], "beta1": Optional[float], "beta2": Optional[float],
           "epsilon": Optional[float], "rho": Optional[float], "threads": Optional[int],

@@ -112,3 +112,8 @@ class TrainResult:
     feature_stats: dict[str, np.ndarray]
     options: TrainOptions = field(default_factory=TrainOptions)
     checkpoint: dict | None = None  # fit(..., keep_checkpoint=True): where to go on from (engine/resume.py)
+    # options.refit: {"epochs", "documents"} of the second pass on train and dev together, and the
+    # first pass's weights at its best epoch (what the dev scores in the history describe)
+    refit: dict | None = None
+    dev_coef: np.ndarray | None = None
+    dev_intercept: np.ndarray | None = None

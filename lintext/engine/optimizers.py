@@ -314,6 +314,11 @@ class OptimizerSpec:
     default_learning_rate: float | None
     state_arrays: tuple[str, ...]
     summary: str
+    hinge_learning_rate: float | None = None  # the default under the hinge loss, when it differs
+
+    def learning_rate_for(self, loss: str) -> float | None:
+        """The default learning rate under ``loss`` (``"softmax"`` or ``"hinge"``)."""
+        return self.hinge_learning_rate if loss == "hinge" and self.hinge_learning_rate else self.default_learning_rate
 
     @property
     def hyperparameters(self) -> dict:
@@ -338,17 +343,13 @@ class OptimizerSpec:
         return self.rule(**kwargs)
 
 
-# Default learning rates for the default batch size (8), measured with lintext's trainer on
-# two synthetic text-like problems (Zipfian features, unit-norm rows, 5 and 8 labels; early
-# stopping on dev loss). AdaDelta keeps the paper's 1. SGD's 3 and AdaGrad's 0.5 (its sum of
-# squared gradients started at 0.01) come from scripts/bench_quality.py (four corpora, 5 seeds,
-# log-tfidf, weights averaged from epoch 2; the README has the table): SGD at 10 scored a little
-# higher there, but with the hinge loss it diverges where 3 does not. With unit-norm rows the
-# softmax loss has curvature at most 1/2, so plain SGD is stable below 2 / (1/2) = 4 (common
-# practice for a quadratic bound). FTRL's 0.1 is of the order of McMahan et al.'s, not measured.
-DEFAULT_LEARNING_RATES = {"sgd": 3.0, "adagrad": 0.5, "adadelta": 1.0, "rmsprop": 3e-3, "adam": 1e-2, "ftrl": 0.1}
+# Default learning rates at the default batch size (8): AdaDelta keeps the paper's 1, FTRL's 0.1 is of the
+# order of McMahan et al.'s (not measured), the others measured with lintext's trainer on text-like problems;
+# SGD's (3 for softmax, 0.7 for the hinge, the default loss) and AdaGrad's 0.5 by scripts/bench_quality.py (four
+# corpora, 5 seeds; table in the README). With unit-norm rows the softmax loss has curvature at most 1/2, so
+# plain SGD is stable below 2 / (1/2) = 4 (common practice for a quadratic bound).
 OPTIMIZERS = {spec.name: spec for spec in (
-    OptimizerSpec("sgd", SGD, PlainSGD, 3.0, (), "plain SGD with a step-size schedule"),
+    OptimizerSpec("sgd", SGD, PlainSGD, 3.0, (), "plain SGD with a step-size schedule", hinge_learning_rate=0.7),
     OptimizerSpec("adagrad", ADAGRAD, AdaGrad, 0.5, ("sum_sq_grad",), "AdaGrad (Duchi, Hazan & Singer 2011)"),
     OptimizerSpec("adadelta", ADADELTA, AdaDelta, 1.0, ("second_moment", "avg_sq_update"), "AdaDelta (Zeiler 2012)"),
     OptimizerSpec("rmsprop", RMSPROP, RMSProp, 3e-3, ("second_moment",), "RMSProp (Tieleman & Hinton 2012)"),

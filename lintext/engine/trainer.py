@@ -36,7 +36,15 @@ Decisions worth knowing:
   mean of the weights after every step; each epoch's dev scores, early stopping, the best
   epoch's weights and the returned weights are the averaged ones (the raw weights before
   epoch ``E``). The train loss stays that of the raw iterates (computed as they train).
-* Feature statistics are accumulated over every epoch run (also after the best epoch).
+* Refit (``refit=True``, the default, when early stopping ran on dev rows in memory): once the
+  dev set has chosen the best epoch, the model is trained again from zero on the training and dev
+  rows together for that many epochs, same options and seed, and those are the weights returned.
+  The history, ``best_epoch`` and the dev scores are the first pass's (``dev_coef`` and
+  ``dev_intercept`` keep its weights, which they describe); ``refit`` says how many epochs and
+  documents the second pass had. Not with feature-store shards, nor when resuming or keeping a
+  checkpoint (the sweep's runs). Measured to help on every corpus of ``scripts/bench_quality.py``.
+* Feature statistics are accumulated over every epoch run (also after the best epoch); after a
+  refit, those of the second pass.
   ``effective_step`` is NaN for a feature that never had a non-zero gradient.
 * ``optimizer="lbfgs"`` minimises ``mean loss + (l2/2)||W||^2`` with SciPy's L-BFGS-B
   (``epochs`` = most iterations; one history row per iteration, ``learning_rate`` None).
@@ -50,6 +58,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 from typing import Callable
 
 import numpy as np
@@ -145,11 +154,40 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
     if options.optimizer == "lbfgs":
         if weights is not None:
             raise ConfigError("--label-weights", options.label_weights, "lbfgs takes no weights; use a stochastic optimizer")
-        return fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
-    if isinstance(X, RowShards) and weights is not None:
-        raise ConfigError("--label-weights", options.label_weights, "weights are not taken with a sharded feature store")
-    return _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights, resume,
-                           keep_checkpoint)
+        result = fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
+    else:
+        if isinstance(X, RowShards) and weights is not None:
+            raise ConfigError("--label-weights", options.label_weights, "weights are not taken with a sharded feature store")
+        result = _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights, resume,
+                                 keep_checkpoint)
+    if (options.refit and X_dev is not None and options.patience > 0 and resume is None and not keep_checkpoint
+            and not isinstance(X, RowShards) and not isinstance(X_dev, RowShards)):
+        result = _refit(result, X, y, n_labels, X_dev, y_dev, options, progress, sample_weight, dev_weight, label_names)
+    return result
+
+
+def _refit(first: TrainResult, X, y, n_labels, X_dev, y_dev, options, progress, sample_weight, dev_weight,
+           label_names) -> TrainResult:
+    """Train again from zero on the training and dev rows together, for the first pass's best
+    number of epochs (the dev set has chosen when to stop; then its documents are worth more as
+    training data). Same options and seed, no dev scores; the result keeps the first pass's
+    history and best epoch, and its weights as ``dev_coef`` / ``dev_intercept``."""
+    X_all, y_all = check_training_arrays(sp.vstack([X, X_dev], format="csr"), np.concatenate([y, y_dev]),
+                                         n_labels, "X", "y")
+    own = None
+    if sample_weight is not None or dev_weight is not None:
+        own = np.concatenate([np.ones(len(y)) if sample_weight is None else np.asarray(sample_weight, dtype=np.float64),
+                              np.ones(len(y_dev)) if dev_weight is None else np.asarray(dev_weight, dtype=np.float64)])
+    again = replace(options, epochs=max(int(first.best_epoch), 1), refit=False)
+    report = None if progress is None else (lambda row: progress({**row, "refit": True}))
+    if options.optimizer == "lbfgs":
+        final = fit_lbfgs(X_all, y_all, n_labels, None, None, again, report)
+    else:
+        weights = example_weights(options.label_weights, y_all, n_labels, label_names, own, "sample_weight")
+        final = _fit_stochastic(X_all, y_all, n_labels, None, None, again, report, weights)
+    return replace(first, coef=final.coef, intercept=final.intercept, feature_stats=final.feature_stats,
+                   refit={"epochs": again.epochs, "documents": int(X_all.shape[0])},
+                   dev_coef=first.coef, dev_intercept=first.intercept)
 
 
 # --------------------------------------------------------------------------- stochastic rules

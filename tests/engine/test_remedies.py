@@ -90,7 +90,7 @@ def test_with_every_remedy_off_the_weights_are_the_bits_of_before():
         rate = {"sgd": 0.5, "adagrad": 0.2}.get(opt)  # (0.2: AdaGrad's default then)
         options = TrainOptions(optimizer=opt, learning_rate=rate, loss=loss, l2=float(l2),
                                epochs=4, batch_size=4, patience=2, initial_sum_sq=0.0 if opt == "adagrad" else None,
-                               average=0)
+                               average=0, stop_metric="dev-loss", refit=False)
         r = fit(X, y, 3, Xd, yd, options)
         assert hashlib.sha256(r.coef.tobytes() + r.intercept.tobytes()).hexdigest()[:16] == expected, key
 
@@ -145,7 +145,8 @@ def test_trainer_average_is_the_mean_of_the_iterates():
 
 def test_averaged_weights_drive_dev_scores_and_early_stopping():
     X, y = random_problem(n=200, n_features=30, density=0.2, seed=4)
-    result = fit(X[:150], y[:150], 3, X[150:], y[150:], TrainOptions(epochs=6, average=1, patience=3, learning_rate=0.3))
+    result = fit(X[:150], y[:150], 3, X[150:], y[150:], TrainOptions(epochs=6, average=1, patience=3, learning_rate=0.3, loss="softmax",
+                                                                     stop_metric="dev-loss", refit=False))
     best = result.history[result.best_epoch - 1]
     scores = X[150:] @ result.coef + result.intercept
     assert losses.mean_loss("softmax", scores, y[150:]) == pytest.approx(best["dev_loss"], rel=1e-12)
@@ -272,7 +273,7 @@ def test_weight_two_is_counting_an_example_twice_in_the_loss():
     X, y = random_problem(n=10, seed=10)
     w = np.ones(10)
     w[0] = 2.0
-    weighted = fit(X, y, 3, options=TrainOptions(epochs=1, patience=0, batch_size=1000), sample_weight=w)
+    weighted = fit(X, y, 3, options=TrainOptions(epochs=1, patience=0, batch_size=1000, loss="softmax"), sample_weight=w)
     S = np.zeros((11, 3))  # the first (full-batch) epoch scores the all-zero model: every loss is ln 3
     assert weighted.history[0]["train_loss"] == pytest.approx(losses.mean_loss("softmax", S, np.r_[y[0], y]))
     assert weighted.history[0]["weighted_loss"] is True

@@ -63,7 +63,7 @@ def trained(tmp_path_factory):
                           # averaging): with today's, one of the confidence sections measured below came out
                           # 81 px high here, under the 150 the layout check expects of a filled section
                           options={"optimizer": "adagrad", "epochs": 4, "patience": 0, "learning_rate": 0.2,
-                                   "initial_sum_sq": 0.0, "average": 0})
+                                   "initial_sum_sq": 0.0, "average": 0, "loss": "softmax"})
     texts, labels = _read_texts(paths["train"])
     sources = [f"train.csv:{i + 2}" for i in range(len(texts))]
     X = model.featurizer.transform(texts)
@@ -121,7 +121,8 @@ def tiny_model():
     return lintext.build_model(
         corpus, dev_fraction=0,
         featurizer=FeaturizerConfig(ngrams=(1, 1), min_df=1, weighting="binary", normalize=False),
-        options=lintext.TrainOptions(optimizer="sgd", batch_size=1, epochs=2, patience=0, learning_rate=0.5, average=0),
+        options=lintext.TrainOptions(optimizer="sgd", batch_size=1, epochs=2, patience=0, learning_rate=0.5, average=0,
+                                     loss="softmax"),
     )
 
 
@@ -355,7 +356,7 @@ def test_report_without_statistics_dev_set_or_extras(tmp_path, trained):
 
 
 def test_report_for_lbfgs_and_hinge_without_dev(trained, tmp_path):
-    lbfgs = lintext.build_model(trained["train"], dev=trained["dev"], options={"optimizer": "lbfgs", "epochs": 15})
+    lbfgs = lintext.build_model(trained["train"], dev=trained["dev"], options={"optimizer": "lbfgs", "epochs": 15, "loss": "softmax"})
     write_report(lbfgs, tmp_path / "lbfgs")
     html = (tmp_path / "lbfgs" / "report.html").read_text(encoding="utf-8")
     assert "has no per-feature effective step" in html  # effective steps are NaN

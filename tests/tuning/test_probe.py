@@ -108,7 +108,7 @@ def test_first_rung_starts_from_the_untrained_loss():
     # 1e-8 move it by at most 4e-6, and the softmax loss (2-Lipschitz in the scores, sum of
     # |gradient| <= 2) by at most 8e-6 from ln 3.
     X, y = synthetic_problem()
-    result = probe_learning_rate(X, y, 3, {"optimizer": "sgd"}, lowest_rate=1e-8, highest_rate=1e-7)
+    result = probe_learning_rate(X, y, 3, {"optimizer": "sgd", "loss": "softmax"}, lowest_rate=1e-8, highest_rate=1e-7)
     assert result.mean_losses[0] == pytest.approx(LN3, abs=1e-5)
 
 
@@ -121,7 +121,7 @@ def problem():
 @pytest.mark.parametrize("optimizer", ["sgd", "adagrad", "adam"])
 def test_probe_suggests_a_rate_among_the_best_by_brute_force(problem, optimizer):
     X, y = problem
-    results = [probe_learning_rate(X, y, 3, {"optimizer": optimizer, "seed": seed}) for seed in range(3)]
+    results = [probe_learning_rate(X, y, 3, {"optimizer": optimizer, "seed": seed, "loss": "softmax"}) for seed in range(3)]
     for result in results:
         # The climb stops at the first rung whose mean loss is above the untrained model's (ln 3).
         assert result.stopped_by == "mean-loss-above-untrained" and result.verdict == "suggested"
@@ -137,7 +137,7 @@ def test_probe_suggests_a_rate_among_the_best_by_brute_force(problem, optimizer)
     for rate in rates:
         try:
             run = fit(X, y, 3, options=TrainOptions(optimizer=optimizer, learning_rate=float(rate), epochs=epochs,
-                                                    patience=0))
+                                                    patience=0, loss="softmax"))
             final.append(log_loss(y, scipy_softmax(np.asarray(X @ run.coef) + run.intercept, axis=1), labels=[0, 1, 2]))
         except DivergenceError:
             final.append(math.inf)
@@ -165,7 +165,8 @@ def test_probe_says_still_falling_and_suggests_nothing(problem):
 @pytest.mark.parametrize("lowest, reason", [(100.0, "mean-loss-above-untrained"), (1e307, "loss-not-finite")])
 def test_probe_starting_too_high_never_fell(problem, lowest, reason):
     X, y = problem
-    result = probe_learning_rate(X, y, 3, {"optimizer": "sgd"}, lowest_rate=lowest, highest_rate=lowest * 10)
+    result = probe_learning_rate(X, y, 3, {"optimizer": "sgd", "loss": "softmax"}, lowest_rate=lowest,
+                                 highest_rate=lowest * 10)
     assert result.verdict == "never-fell" and result.stopped_by == reason and result.suggested_rate is None
     assert "--steps-per-rung" in result.summary()["advice"] and "--lowest-rate" in result.summary()["advice"]
 
@@ -207,7 +208,7 @@ def rows_of(path):
 @pytest.mark.slow
 def test_cli_probe_spells_its_names_alike_everywhere(tmp_path):
     out = tmp_path / "probe"
-    result = run("probe", DEMO / "train.csv", "--dev", DEMO / "dev.csv", "--out", out)
+    result = run("probe", DEMO / "train.csv", "--dev", DEMO / "dev.csv", "--out", out, "--loss", "softmax")
     assert result.exit_code == 0, result.output
     assert sorted(p.name for p in out.iterdir() if not p.name.startswith(".")) == ["probe.html", "probe.json", "rungs.csv"]
     assert not any(p.name.startswith(".") for p in tmp_path.iterdir())  # no temporary folder left behind
@@ -227,7 +228,8 @@ def test_cli_probe_spells_its_names_alike_everywhere(tmp_path):
 
 
 def test_cli_probe_still_falling_gives_no_suggestion(small_split):
-    result = run("probe", small_split["train"], "--dev", small_split["dev"], "--highest-rate", 0.01, "--steps-per-rung", 10)
+    result = run("probe", small_split["train"], "--dev", small_split["dev"], "--highest-rate", 0.01, "--steps-per-rung", 10,
+                 "--loss", "softmax")
     assert result.exit_code == 0, result.output
     lines = result.output.splitlines()
     assert "verdict: still-falling" in lines and "suggested_rate: none" in lines

@@ -29,7 +29,7 @@ runner = CliRunner()
 # are about 1e308 times the gradient, and the scores of the next examples (sums of such
 # weights) pass float64's largest finite value, 1.797e308 (IEEE 754), so the loss is inf/NaN.
 OVERFLOW_RATE = 1e308
-SMALL = {"epochs": 6, "patience": 2}
+SMALL = {"epochs": 6, "patience": 2, "loss": "softmax", "stop_metric": "dev-loss"}
 
 
 def rows_of(path):
@@ -162,7 +162,7 @@ def run(*args):
 def test_cli_sweep_writes_table_page_and_best_model(small_split, tmp_path):
     out = tmp_path / "sweep"
     result = run("sweep", small_split["train"], "--dev", small_split["dev"], "--out", out, "--optimizers", "sgd,adam",
-                 "--learning-rates", "0.1,1", "--epochs", 4, "--workers", 1)
+                 "--learning-rates", "0.1,1", "--epochs", 4, "--workers", 1, "--loss", "softmax", "--stop-metric", "dev-loss")
     assert result.exit_code == 0, result.output
     assert "best: " in result.output and ("finished" in result.output or "stopped early" in result.output)
     assert sorted(p.name for p in out.iterdir()) == [".lintext.json", "best", "sweep.csv", "sweep.html", "sweep.json"]
