@@ -25,7 +25,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -36,10 +35,9 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import lintext  # noqa: E402
+from bench_common import FORTUNES_TSV, fortunes_rows  # noqa: E402
 from lintext.text.readers import Corpus  # noqa: E402
 
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
-FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
 OUT = ROOT / "bench-results" / "calibration.json"
 DEMO = ROOT / "data" / "demo"
 KEYS = ("dev_ece_before", "dev_ece_after", "test_ece_before", "test_ece_after",
@@ -47,14 +45,7 @@ KEYS = ("dev_ece_before", "dev_ece_after", "test_ece_before", "test_ece_after",
 
 
 def fortunes_split(seed: int):
-    if not FORTUNES_TSV.is_file():
-        subprocess.run(["bash", str(FORTUNES_SCRIPT), str(FORTUNES_TSV)], check=True, capture_output=True)
-    rows = []
-    with open(FORTUNES_TSV, encoding="utf-8") as fh:  # "category<TAB>text", no header
-        for number, line in enumerate(fh, start=1):
-            category, _, text = line.rstrip("\n").partition("\t")
-            if text:
-                rows.append((text, category, f"{FORTUNES_TSV}:{number}"))
+    rows = [(text, label, f"{FORTUNES_TSV}:{number}") for text, label, number in fortunes_rows()]
     order = np.random.default_rng(seed).permutation(len(rows))
     cut1, cut2 = int(0.8 * len(rows)), int(0.9 * len(rows))
     train = [rows[i] for i in order[:cut1]]

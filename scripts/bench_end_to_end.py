@@ -43,7 +43,6 @@ on a two-core machine another busy process slows everything here.
 from __future__ import annotations
 
 import argparse
-import csv
 import json
 import os
 import platform
@@ -61,10 +60,9 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
+from bench_common import FORTUNES_TSV, fortunes_rows, load, write_csv, write_results  # noqa: E402
 from make_synth import SHAPES, make_corpus  # noqa: E402
 
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
-FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
 OUT = ROOT / "bench-results" / "end_to_end.json"
 MIN_LABEL_TEXTS = 10
 TRAIN_OPTIONS = {"optimizer": "adagrad", "epochs": 5, "patience": 0}
@@ -76,42 +74,22 @@ def target_floor(optimizer: str) -> float:
     return 1.5 if optimizer in ("sgd", "adagrad") else 2.0
 
 
-def load() -> float:
-    return round(os.getloadavg()[0], 2)
-
-
 # --------------------------------------------------------------------------- corpora
-
-
-def write_csv(path: Path, texts, labels) -> Path:
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow(["text", "label"])
-        writer.writerows(zip(texts, labels))
-    return path
 
 
 def large_corpus(folder: Path) -> dict:
     shape = {**SHAPES["large"], "documents": SHAPES["large"]["documents"] + 10_000}
     texts, labels = make_corpus(seed=0, **shape)
     cut = SHAPES["large"]["documents"]
-    return {"train": write_csv(folder / "large-train.csv", texts[:cut], labels[:cut]),
-            "test": write_csv(folder / "large-test.csv", texts[cut:], labels[cut:]),
-            "all": write_csv(folder / "large-all.csv", texts, labels),
+    return {"train": write_csv(folder / "large-train.csv", zip(texts[:cut], labels[:cut])),
+            "test": write_csv(folder / "large-test.csv", zip(texts[cut:], labels[cut:])),
+            "all": write_csv(folder / "large-all.csv", zip(texts, labels)),
             "description": f"make_synth shape 'large' ({shape}), seed 0; first {cut:,} train, last 10,000 test"}
 
 
 def fortunes_corpus(folder: Path, log) -> dict:
-    if not FORTUNES_TSV.is_file():
-        log(f"building the fortunes corpus at {FORTUNES_TSV}")
-        subprocess.run(["bash", str(FORTUNES_SCRIPT), str(FORTUNES_TSV)], check=True, capture_output=True)
-    texts, labels = [], []
-    with open(FORTUNES_TSV, encoding="utf-8") as fh:  # "category<TAB>text", no header
-        for line in fh:
-            category, _, text = line.rstrip("\n").partition("\t")
-            if text:
-                texts.append(text)
-                labels.append(category)
+    rows = fortunes_rows(log)
+    texts, labels = [text for text, _, _ in rows], [label for _, label, _ in rows]
     rng = np.random.default_rng(0)
     names, counts = np.unique(labels, return_counts=True)
     kept = names[counts >= MIN_LABEL_TEXTS]  # a label of 2 texts cannot give train, dev and test a share
@@ -123,8 +101,8 @@ def fortunes_corpus(folder: Path, log) -> dict:
         train += members[:cut].tolist()
         test += members[cut:].tolist()
     pick = lambda idx: ([texts[i] for i in sorted(idx)], [labels[i] for i in sorted(idx)])  # noqa: E731
-    return {"train": write_csv(folder / "fortunes-train.csv", *pick(train)),
-            "test": write_csv(folder / "fortunes-test.csv", *pick(test)),
+    return {"train": write_csv(folder / "fortunes-train.csv", zip(*pick(train))),
+            "test": write_csv(folder / "fortunes-test.csv", zip(*pick(test))),
             "description": f"Debian fortunes ({FORTUNES_TSV}): {len(train) + len(test):,} texts of the {kept.size} "
                            f"categories with at least {MIN_LABEL_TEXTS}, seeded 80/20 split per category"}
 
@@ -425,10 +403,7 @@ def main(argv=None) -> int:
           f"{results['load_start']} at the start, {results['load_end']} at the end; {os.cpu_count()} cores)")
     print(text)
     out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(out.name + ".tmp")
-    tmp.write_text(json.dumps({**results, "table": text.splitlines()}, indent=2, default=str) + "\n", encoding="utf-8")
-    tmp.replace(out)
+    write_results(out, {**results, "table": text.splitlines()})
     print(f"written {out}")
     return 0
 

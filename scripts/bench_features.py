@@ -29,11 +29,9 @@ from __future__ import annotations
 
 import argparse
 import gc
-import json
 import os
 import platform
 import statistics
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -49,10 +47,10 @@ import sklearn  # noqa: E402
 from joblib import delayed  # noqa: E402
 from sklearn.feature_extraction.text import CountVectorizer, TfidfVectorizer  # noqa: E402
 
+from bench_common import FORTUNES_TSV, fortunes_rows, load, write_results  # noqa: E402
 from lintext.text.featurizer import PARALLEL_MIN_DOCS, Featurizer, FeaturizerConfig  # noqa: E402
 from make_synth import make_corpus  # noqa: E402
 
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
 COUNT = FeaturizerConfig(ngrams=(1, 2), min_df=1, weighting="count", normalize=False)  # = CountVectorizer((1, 2))
 DEFAULT = FeaturizerConfig()
 
@@ -79,7 +77,7 @@ def timed_round_robin(cases, repeats, log):
             started = time.perf_counter()
             results[label] = fn()
             seconds[label].append(time.perf_counter() - started)
-            loads[label].append(round(os.getloadavg()[0], 2))  # 1-minute load average after the run
+            loads[label].append(load())  # 1-minute load average after the run
     return seconds, loads, results
 
 
@@ -225,19 +223,6 @@ def bench_corpus(name, texts, jobs, repeats, log):
             "cpu_accounting_count_chunked": accounting}
 
 
-def load_fortunes(path: Path, log) -> list[str]:
-    if not path.is_file():
-        log(f"building the fortunes corpus at {path}")
-        subprocess.run(["bash", str(FORTUNES_SCRIPT), str(path)], check=True)
-    texts = []
-    with open(path, encoding="utf-8") as fh:  # "category<TAB>text" per line, no header
-        for line in fh:
-            category, _, text = line.rstrip("\n").partition("\t")
-            if text:
-                texts.append(text)
-    return texts
-
-
 def cold_start(jobs) -> float:
     """Seconds of the first chunked call in this process: starting workers that import lintext."""
     sample, _ = make_corpus(documents=2000, features=5000, seed=1)
@@ -291,7 +276,7 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--jobs", type=int, default=2, help="worker processes for the parallel rows (default 2)")
-    parser.add_argument("--fortunes", default="/tmp/lintext-bench/fortunes.tsv", help="fortunes TSV; built if missing")
+    parser.add_argument("--fortunes", default=str(FORTUNES_TSV), help="fortunes TSV; built if missing")
     parser.add_argument("--skip-fortunes", action="store_true")
     parser.add_argument("--out", default=str(ROOT / "bench-results" / "features.json"))
     args = parser.parse_args(argv)
@@ -308,7 +293,7 @@ def main(argv=None) -> int:
         "numpy": np.__version__,
         "scikit_learn": sklearn.__version__,
         "parallel_min_docs": PARALLEL_MIN_DOCS,
-        "load_before": round(os.getloadavg()[0], 2),
+        "load_before": load(),
         "corpora": {},
     }
     log("starting the worker pool (cold start) ...")
@@ -324,15 +309,13 @@ def main(argv=None) -> int:
     results["corpora"]["synthetic"] = synthetic
     del texts
     if not args.skip_fortunes:
-        results["corpora"]["fortunes"] = bench_corpus("fortunes", load_fortunes(Path(args.fortunes), log), args.jobs, args.repeats, log)
-    results["load_after"] = round(os.getloadavg()[0], 2)
+        texts = [text for text, _, _ in fortunes_rows(log, Path(args.fortunes))]
+        results["corpora"]["fortunes"] = bench_corpus("fortunes", texts, args.jobs, args.repeats, log)
+    results["load_after"] = load()
 
     print_table(results)
     out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(out.name + ".tmp")
-    tmp.write_text(json.dumps(results, indent=2) + "\n", encoding="utf-8")
-    tmp.replace(out)
+    write_results(out, results, default=None)
     print(f"wrote {out}")
     ok = all(v is True or isinstance(v, float) and v < 1e-9 for res in results["corpora"].values() for v in res["checks"].values())
     return 0 if ok else 1

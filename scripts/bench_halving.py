@@ -26,33 +26,11 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from bench_common import FORTUNES_TSV, fortunes_csv  # noqa: E402
 from lintext.from_store import featurize  # noqa: E402
 from lintext.tuning.sweep import sweep  # noqa: E402
 
 WORK = Path("/tmp/lintext-bench/halving")
-FORTUNES = Path("/tmp/lintext-bench/fortunes.tsv")
-
-
-def fortunes_csv(shuffled: bool = False) -> Path | None:
-    """Debian's fortunes as CSV with a ``text,label`` header (the TSV is "category<TAB>text", no header,
-    sorted by category); ``shuffled``: the lines in a seeded random order. None when the TSV is missing."""
-    import csv
-    import random
-
-    if not FORTUNES.exists():
-        return None
-    out = WORK / ("fortunes-shuffled.csv" if shuffled else "fortunes.csv")
-    if not out.exists():
-        with open(FORTUNES, encoding="utf-8") as fh:
-            rows = [line.rstrip("\n").split("\t", 1) for line in fh if "\t" in line]
-        if shuffled:
-            random.Random(0).shuffle(rows)
-        out.parent.mkdir(parents=True, exist_ok=True)
-        with open(out, "w", encoding="utf-8", newline="") as fh:
-            writer = csv.writer(fh, lineterminator="\n")
-            writer.writerow(["text", "label"])
-            writer.writerows([text, label] for label, text in rows)
-    return out
 
 
 def best_of(result) -> dict:
@@ -68,10 +46,10 @@ def main() -> int:
     parser.add_argument("--factor", type=int, default=3)
     args = parser.parse_args()
     cases = [("demo", ROOT / "data/demo/train.csv", ROOT / "data/demo/dev.csv")]
-    if FORTUNES.exists():
-        cases.append(("fortunes", fortunes_csv(), None))
+    if FORTUNES_TSV.exists():
+        cases.append(("fortunes", fortunes_csv(WORK), None))
     else:
-        print(f"{FORTUNES} missing: run ../shared/tools/fortunes_corpus.sh for the second corpus", flush=True)
+        print(f"{FORTUNES_TSV} missing: run ../shared/tools/fortunes_corpus.sh for the second corpus", flush=True)
     report = {"load_average_before": os.getloadavg(), "cpus": os.cpu_count(), "factor": args.factor, "cases": []}
     print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores", flush=True)
     for name, data, dev in cases:

@@ -29,11 +29,8 @@ The probe's timings are wall-clock and depend on the machine's load (recorded).
 from __future__ import annotations
 
 import argparse
-import csv
 import json
 import math
-import os
-import subprocess
 import sys
 import tempfile
 import time
@@ -46,6 +43,7 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
+from bench_common import fortunes_rows, load, write_csv  # noqa: E402
 from lintext.engine.options import TrainOptions  # noqa: E402
 from lintext.engine.trainer import fit  # noqa: E402
 from lintext.errors import DivergenceError  # noqa: E402
@@ -54,8 +52,6 @@ from lintext.tuning.ladder import DEFAULT_STEPS_PER_RUNG, ladder_index, ladder_r
 from lintext.tuning.probe import probe_learning_rate  # noqa: E402
 from make_synth import make_corpus  # noqa: E402
 
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
-FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
 OUT = ROOT / "bench-results" / "probe.json"
 OPTIMIZERS = ("sgd", "adagrad", "adam")
 GRID = range(-12, 9)  # ladder indices: rates 0.001 .. 100
@@ -63,27 +59,12 @@ NEAR_BEST = 0.05
 ADVISED = (-4, -2, 0, 2)  # rungs relative to the suggestion in the probe's advice
 
 
-def load() -> float:
-    return round(os.getloadavg()[0], 2)
-
-
-def write_csv(path: Path, rows) -> Path:
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        writer = csv.writer(fh)
-        writer.writerow(["text", "label"])
-        writer.writerows(rows)
-    return path
-
-
 def corpus(name: str, folder: Path):
     """The prepared data of one corpus (train rows, dev rows, labels)."""
     if name == "demo":
         return prepare_data(ROOT / "data" / "demo" / "train.csv", ROOT / "data" / "demo" / "dev.csv")
     if name == "fortunes":
-        if not FORTUNES_TSV.is_file():
-            subprocess.run(["bash", str(FORTUNES_SCRIPT), str(FORTUNES_TSV)], check=True, capture_output=True)
-        with open(FORTUNES_TSV, encoding="utf-8") as fh:  # "category<TAB>text", no header
-            rows = [(text, label) for label, _, text in (line.rstrip("\n").partition("\t") for line in fh) if text]
+        rows = [(text, label) for text, label, _ in fortunes_rows()]
         return prepare_data(write_csv(folder / "fortunes.csv", rows), None, 0.1)
     texts, labels = make_corpus(documents=8000, features=30000, labels=20, seed=0)
     return prepare_data(write_csv(folder / "synthetic.csv", zip(texts, labels)), None, 0.1)

@@ -32,9 +32,7 @@ writes everything, every seed, to ``bench-results/quality.json``.
 from __future__ import annotations
 
 import argparse
-import csv
 import json
-import os
 import subprocess
 import sys
 import time
@@ -53,6 +51,7 @@ from sklearn.linear_model import SGDClassifier  # noqa: E402
 from sklearn.metrics import accuracy_score, f1_score  # noqa: E402
 from sklearn.svm import LinearSVC  # noqa: E402
 
+from bench_common import fortunes_rows, labelled_tsv_rows, load, write_csv  # noqa: E402
 from lintext.engine.options import TrainOptions  # noqa: E402
 from lintext.engine.trainer import fit  # noqa: E402
 from lintext.pipeline import prepare_data  # noqa: E402
@@ -60,7 +59,6 @@ from lintext.text.readers import read_corpus  # noqa: E402
 
 BENCH = Path("/tmp/lintext-bench")
 FOLDER = BENCH / "quality"
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
 OUT = ROOT / "bench-results" / "quality.json"
 CORPORA = ("demo", "fortunes", "manpages", "synthetic")
 # Candidate defaults measured with --candidates: training options (the rest the defaults).
@@ -76,20 +74,7 @@ CANDIDATES = {
 }
 
 
-def load() -> float:
-    return round(os.getloadavg()[0], 2)
-
-
 # --------------------------------------------------------------------------- corpora
-
-
-def write_csv(path: Path, rows) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow(["text", "label"])
-        writer.writerows(rows)
-    return path
 
 
 def split_files(name: str, rows: list, min_documents: int = 20) -> tuple[Path, Path]:
@@ -106,16 +91,6 @@ def split_files(name: str, rows: list, min_documents: int = 20) -> tuple[Path, P
     return train, test
 
 
-def tsv_rows(path: Path) -> list:
-    rows = []
-    with open(path, encoding="utf-8") as fh:  # "label<TAB>text", no header
-        for line in fh:
-            label, _, text = line.rstrip("\n").partition("\t")
-            if text:
-                rows.append((text, label))
-    return rows
-
-
 def corpus_files(name: str, log) -> tuple[Path, Path]:
     """Train and test files of a corpus, built on first use."""
     if name == "demo":
@@ -125,15 +100,12 @@ def corpus_files(name: str, log) -> tuple[Path, Path]:
         return train, test
     log(f"building the {name} corpus")
     if name == "fortunes":
-        tsv = BENCH / "fortunes.tsv"
-        if not tsv.is_file():
-            subprocess.run(["bash", str(FORTUNES_SCRIPT), str(tsv)], check=True, capture_output=True)
-        return split_files(name, tsv_rows(tsv))
+        return split_files(name, [(text, label) for text, label, _ in fortunes_rows()])
     if name == "manpages":
         tsv = BENCH / "manpages.tsv"
         if not tsv.is_file():
             subprocess.run([sys.executable, str(HERE / "make_manpages.py"), "--out", str(tsv)], check=True)
-        return split_files(name, tsv_rows(tsv))
+        return split_files(name, [(text, label) for text, label, _ in labelled_tsv_rows(tsv)])
     if name == "synthetic":
         from make_synth import make_corpus
 

@@ -36,34 +36,12 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "scripts"))
 
+from bench_common import FORTUNES_TSV, fortunes_csv  # noqa: E402
 from make_synth import make_corpus, write_corpus  # noqa: E402
 
 WORK = Path("/tmp/lintext-bench/store")
 LINTEXT = str(Path(sys.executable).with_name("lintext"))
-FORTUNES = Path("/tmp/lintext-bench/fortunes.tsv")
 MODES = {"hashing": ["--hash-space", "2^18"], "vocabulary": ["--ngrams", "1-1"]}
-
-
-def fortunes_csv(shuffled: bool = False) -> Path | None:
-    """Debian's fortunes as CSV with a ``text,label`` header (the TSV is "category<TAB>text", no header,
-    sorted by category); ``shuffled``: the lines in a seeded random order. None when the TSV is missing."""
-    import csv
-    import random
-
-    if not FORTUNES.exists():
-        return None
-    out = WORK / ("fortunes-shuffled.csv" if shuffled else "fortunes.csv")
-    if not out.exists():
-        with open(FORTUNES, encoding="utf-8") as fh:
-            rows = [line.rstrip("\n").split("\t", 1) for line in fh if "\t" in line]
-        if shuffled:
-            random.Random(0).shuffle(rows)
-        out.parent.mkdir(parents=True, exist_ok=True)
-        with open(out, "w", encoding="utf-8", newline="") as fh:
-            writer = csv.writer(fh, lineterminator="\n")
-            writer.writerow(["text", "label"])
-            writer.writerows([text, label] for label, text in rows)
-    return out
 
 
 def timed(args: list[str]) -> dict:
@@ -113,9 +91,9 @@ def shuffling(seeds: int, documents: int) -> list[dict]:
     from lintext.pipeline import prepare_data
 
     cases = [("demo", ROOT / "data/demo/train.csv", ROOT / "data/demo/dev.csv", 500)]
-    if FORTUNES.exists():  # as built (sorted by category: every shard holds one or two labels) and shuffled
-        cases.append(("fortunes (file sorted by label)", fortunes_csv(), None, 2000))
-        cases.append(("fortunes (file shuffled)", fortunes_csv(shuffled=True), None, 2000))
+    if FORTUNES_TSV.exists():  # as built (sorted by category: every shard holds one or two labels) and shuffled
+        cases.append(("fortunes (file sorted by label)", fortunes_csv(WORK), None, 2000))
+        cases.append(("fortunes (file shuffled)", fortunes_csv(WORK, shuffled=True), None, 2000))
     cases.append(("synthetic", corpus(documents, 200_000), None, max(1000, documents // 10)))
     rows = []
     for name, data, dev, shard_rows in cases:

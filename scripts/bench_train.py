@@ -57,7 +57,6 @@ everything here, memory-bound loops most.
 from __future__ import annotations
 
 import argparse
-import csv
 import gc
 import json
 import os
@@ -87,10 +86,9 @@ from lintext.engine import optimizers as optim  # noqa: E402
 from lintext.engine.options import TrainOptions  # noqa: E402
 from lintext.engine.trainer import fit  # noqa: E402
 from lintext.text.featurizer import Featurizer, FeaturizerConfig  # noqa: E402
+from bench_common import fortunes_rows, load, write_csv, write_results  # noqa: E402
 from make_synth import SHAPES, make_corpus  # noqa: E402
 
-FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
-FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
 OUT = ROOT / "bench-results" / "train.json"
 OPTIMIZERS = ("sgd", "adagrad", "adadelta", "rmsprop", "adam")
 # The synthetic corpus keeps every feature (min_df=1: about 780,000 columns, a 300 MB float64
@@ -108,10 +106,6 @@ def target_floor(optimizer: str, batch_size: int) -> float | None:
     return 2.0 if batch_size == 8 else None
 
 
-def load() -> float:
-    return round(os.getloadavg()[0], 2)
-
-
 # --------------------------------------------------------------------------- data
 
 
@@ -127,16 +121,8 @@ def large_corpus(test_documents):
 
 
 def fortunes_corpus(log):
-    if not FORTUNES_TSV.is_file():
-        log(f"building the fortunes corpus at {FORTUNES_TSV}")
-        subprocess.run(["bash", str(FORTUNES_SCRIPT), str(FORTUNES_TSV)], check=True, capture_output=True)
-    texts, names = [], []
-    with open(FORTUNES_TSV, encoding="utf-8") as fh:  # "category<TAB>text", no header
-        for line in fh:
-            category, _, text = line.rstrip("\n").partition("\t")
-            if text:
-                texts.append(text)
-                names.append(category)
+    rows = fortunes_rows(log)
+    texts, names = [text for text, _, _ in rows], [label for _, label, _ in rows]
     order = np.random.default_rng(0).permutation(len(texts))
     cut = int(0.8 * len(texts))
     pick = lambda idx: ([texts[i] for i in idx], [names[i] for i in idx])  # noqa: E731
@@ -154,13 +140,6 @@ def featurize(corpus, config):
     keep = np.array([name in index for name in corpus["test"][1]])
     yt = np.array([index[name] for name, k in zip(corpus["test"][1], keep) if k], dtype=np.int64)
     return X, y, Xt[keep], yt, len(labels)
-
-
-def write_csv(path, texts, names):
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        writer = csv.writer(fh)
-        writer.writerow(["text", "label"])
-        writer.writerows(zip(texts, names))
 
 
 # --------------------------------------------------------------------------- epoch time against the floor
@@ -575,8 +554,8 @@ def main(argv=None) -> int:
     if not args.skip_end_to_end:
         for name, corpus in corpora.items():
             train_csv, test_csv = Path(folder) / f"{name}-train.csv", Path(folder) / f"{name}-test.csv"
-            write_csv(train_csv, *corpus["train"])
-            write_csv(test_csv, *corpus["test"])
+            write_csv(train_csv, zip(*corpus["train"]))
+            write_csv(test_csv, zip(*corpus["test"]))
             results["end_to_end"].append(end_to_end(name, train_csv, test_csv, args.repeats, args.jobs, folder, log))
 
     return finish(results, args, wall)
@@ -591,10 +570,7 @@ def finish(results, args, wall) -> int:
           f"{results['load_start']} at the start, {results['load_end']} at the end; {os.cpu_count()} cores)")
     print(text)
     out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(out.name + ".tmp")
-    tmp.write_text(json.dumps({**results, "table": text.splitlines()}, indent=2, default=float) + "\n", encoding="utf-8")
-    tmp.replace(out)
+    write_results(out, {**results, "table": text.splitlines()}, default=float)
     print(f"written {out}")
     return 0
 

@@ -177,7 +177,6 @@ def iter_records(
     """
     reader = (reader or ReaderOptions()).validate()
     fmt = reader.format or infer_format(path)
-    text_column, label_column = reader.text_column, reader.label_column
     if fmt == "lines" and require_labels:
         raise InputError(path, "plain text (one document per line) has no labels; give labelled data as "
                                "CSV, TSV, JSON Lines or a folder (--format)")
