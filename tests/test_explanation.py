@@ -18,7 +18,7 @@ from sklearn.feature_extraction.text import HashingVectorizer
 
 import lintext
 from lintext.evidence import RARE_DF
-from lintext.explanation import dev_errors, errors_record, explain_matrix, iter_explanations
+from lintext.explanation import errors_record, explain_matrix, iter_explanations
 from lintext.errors import ConfigError
 from lintext.text.readers import read_corpus
 

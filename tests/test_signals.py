@@ -10,7 +10,6 @@ the signal between two steps (``lintext.files.step_hook``).
 
 from __future__ import annotations
 
-import os
 import signal
 import subprocess
 import sys

@@ -12,9 +12,7 @@ import time
 
 import numpy as np
 import pytest
-from typer.testing import CliRunner
 
-from lintext.cli import app
 from lintext.report.confusions import (HEAT_MAX_LABELS, confusion_order, confusion_section, heat_labels,
                                        write_confusion_csv)
 

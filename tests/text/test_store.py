@@ -27,7 +27,6 @@ from lintext.pipeline import build_model, evaluate, prediction_rows, prepare_dat
 from lintext.text.config import FeaturizerConfig
 from lintext.text.readers import read_corpus
 from lintext.text.split import split_dev
-from lintext.text.store import open_store
 from lintext.text.streaming import dev_rows, scan_labels
 from tests.conftest import DEMO, small_corpus_rows, write_csv
 
