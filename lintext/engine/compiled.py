@@ -155,6 +155,17 @@ def prefetch(typingctx, array, row, column):
     return sig, codegen
 
 
+@njit(inline="always", **NO_REFCOUNT)
+def prefetch_row(array, row, step):
+    """:func:`prefetch` row ``row`` of a 2-D array (nothing when it has no rows, as a rule's
+    unused state): a hint every ``step`` columns (one per cache line) and one at the last."""
+    if array.shape[0] > 0:
+        end = array.shape[1] - 1
+        for column in range(0, end + 1, step):
+            prefetch(array, row, column)
+        prefetch(array, row, end)
+
+
 @njit(**FAST)
 def schedule_lr(schedule_code, lr0, decay, step):
     """Compiled twin of :func:`lintext.engine.schedules.schedule_learning_rate`."""
@@ -294,37 +305,18 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     a1 = 1.0 - beta1
     a2 = 1.0 - beta2
     line = max(1, 64 // params.itemsize)
-    end = n_labels - 1
     fetched = 0
     owed = 0  # n_up prefetches spread over hi - lo rows, without a division per row
     ahead = STATE_AHEAD
     for s in range(lo - ahead, hi):
         if s + ahead < hi and ahead > 0:  # the state of the row STATE_AHEAD rows on
             jf = touched[s + ahead]
-            if sum_sq_grad.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(sum_sq_grad, jf, l)
-                prefetch(sum_sq_grad, jf, end)
-            if first_moment.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(first_moment, jf, l)
-                prefetch(first_moment, jf, end)
-            if second_moment.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(second_moment, jf, l)
-                prefetch(second_moment, jf, end)
-            if avg_sq_update.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(avg_sq_update, jf, l)
-                prefetch(avg_sq_update, jf, end)
-            if shifted_grad_sum.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(shifted_grad_sum, jf, l)
-                prefetch(shifted_grad_sum, jf, end)
-            if avg_sum.shape[0] > 0:  # float64 whatever the weights' precision
-                for l in range(0, n_labels, 8):
-                    prefetch(avg_sum, jf, l)
-                prefetch(avg_sum, jf, end)
+            prefetch_row(sum_sq_grad, jf, line)
+            prefetch_row(first_moment, jf, line)
+            prefetch_row(second_moment, jf, line)
+            prefetch_row(avg_sq_update, jf, line)
+            prefetch_row(shifted_grad_sum, jf, line)
+            prefetch_row(avg_sum, jf, 8)  # float64 whatever the weights' precision
         if s < lo:
             continue
         owed += n_up
@@ -333,13 +325,8 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             jn = upcoming[fetched]
             fetched += 1
             prefetch(info, jn, 0)  # its record, read first by the next batch
-            for l in range(0, n_labels, line):
-                prefetch(params, jn, l)
-            prefetch(params, jn, end)
-            if l1_applied.shape[0] > 0:
-                for l in range(0, n_labels, line):
-                    prefetch(l1_applied, jn, l)
-                prefetch(l1_applied, jn, end)
+            prefetch_row(params, jn, line)
+            prefetch_row(l1_applied, jn, line)
         j = touched[s]
         if average_gap[s] > 0:  # averaging: the weights of its missed steps (prepare_batch)
             c = float(average_gap[s])
