@@ -24,15 +24,9 @@ from lintext.engine.reference import adagrad_paper_replay, cumulative_l1_replay,
 from lintext.engine.trainer import fit, label_weight_vector
 from lintext.errors import ConfigError, DivergenceError
 
+from .test_kernels import random_problem
+
 LRS = {"sgd": 0.3, "adagrad": 0.3, "adadelta": 1.0, "rmsprop": 0.01, "adam": 0.02, "ftrl": 0.3}
-
-
-def random_problem(n=24, n_features=9, n_labels=3, density=0.3, seed=0):
-    rng = np.random.default_rng(seed)
-    X = sp.random(n, n_features, density=density, format="csr", random_state=seed,
-                  data_rvs=lambda k: rng.normal(size=k))
-    y = rng.integers(0, n_labels, size=n).astype(np.int64)
-    return X, y
 
 
 def kernel_run(name, X, y, epochs=3, batch_size=2, lazy=True, l2=0.0, l1=0.0, schedule="constant", decay=0.0,
