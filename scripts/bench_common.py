@@ -13,6 +13,7 @@ import json
 import os
 import random
 import subprocess
+import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -76,3 +77,17 @@ def write_results(out: Path, results: dict, default=str) -> None:
     tmp = out.with_name(out.name + ".tmp")
     tmp.write_text(json.dumps(results, indent=2, default=default) + "\n", encoding="utf-8")
     tmp.replace(out)
+
+
+def finish(results: dict, title: str, table, out: Path, wall: float, default=str) -> int:
+    """End a benchmark: the load and the total time into ``results``, ``table(results)`` printed
+    under a title line, and ``results`` with the table's lines written to ``out``."""
+    results["load_end"] = load()
+    results["total_seconds"] = time.perf_counter() - wall
+    text = table(results)
+    print(f"{title} ({results['total_seconds']:.0f} s; 1-minute load average "
+          f"{results['load_start']} at the start, {results['load_end']} at the end; {os.cpu_count()} cores)")
+    print(text)
+    write_results(out, {**results, "table": text.splitlines()}, default=default)
+    print(f"written {out}")
+    return 0

@@ -60,7 +60,7 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
-from bench_common import FORTUNES_TSV, fortunes_rows, load, write_csv, write_results  # noqa: E402
+from bench_common import FORTUNES_TSV, finish, fortunes_rows, load, write_csv  # noqa: E402
 from make_synth import SHAPES, make_corpus  # noqa: E402
 
 OUT = ROOT / "bench-results" / "end_to_end.json"
@@ -396,16 +396,7 @@ def main(argv=None) -> int:
         if not args.skip_floor:
             for name, corpus in corpora.items():
                 results["floor"] += floor_table(name, corpus, args.epochs, log)
-    results["load_end"] = load()
-    results["total_seconds"] = time.perf_counter() - wall
-    text = table(results)
-    print(f"lintext end-to-end benchmark ({results['total_seconds']:.0f} s; 1-minute load average "
-          f"{results['load_start']} at the start, {results['load_end']} at the end; {os.cpu_count()} cores)")
-    print(text)
-    out = Path(args.out)
-    write_results(out, {**results, "table": text.splitlines()})
-    print(f"written {out}")
-    return 0
+    return finish(results, "lintext end-to-end benchmark", table, Path(args.out), wall)
 
 
 if __name__ == "__main__":

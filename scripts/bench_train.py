@@ -21,7 +21,7 @@ Measured, with the issue "Speed"'s targets:
   around them)``, so a burst of load from another process hits both sides. Targets: <= 1.5 for
   SGD and AdaGrad at batch sizes 8 and 1, <= 2 for Adam, RMSProp and AdaDelta at batch size 8
   (their batch-1 rows are for information). The rows "+ averaging" time the default training
-  (SGD, softmax, weights averaged: one more model-sized array). The arrays are written once
+  (SGD, the default loss, weights averaged: one more model-sized array). The arrays are written once
   before timing, so the first touch of fresh pages is not counted. ``--epochs-only`` stops
   after these tables (and the accuracy rows).
 * scikit-learn's ``SGDClassifier(loss="log_loss", tol=None)`` seconds per epoch (5 epochs,
@@ -86,7 +86,7 @@ from lintext.engine import optimizers as optim  # noqa: E402
 from lintext.engine.options import TrainOptions  # noqa: E402
 from lintext.engine.trainer import fit  # noqa: E402
 from lintext.text.featurizer import Featurizer, FeaturizerConfig  # noqa: E402
-from bench_common import fortunes_rows, load, write_csv, write_results  # noqa: E402
+from bench_common import finish, fortunes_rows, load, write_csv  # noqa: E402
 from make_synth import SHAPES, make_corpus  # noqa: E402
 
 OUT = ROOT / "bench-results" / "train.json"
@@ -96,6 +96,7 @@ OPTIMIZERS = ("sgd", "adagrad", "adadelta", "rmsprop", "adam")
 CONFIGS = {"synthetic": FeaturizerConfig(min_df=1), "large": FeaturizerConfig(), "fortunes": FeaturizerConfig()}
 CORPORA = tuple(CONFIGS)
 LOSSES = ("softmax", "hinge")
+DEFAULT_LOSS = TrainOptions().loss
 TARGET_E2E, TARGET_MEMORY, TARGET_COMPILE = 0.5, 1.5, 10.0
 
 
@@ -524,9 +525,9 @@ def main(argv=None) -> int:
                     log(f"  {name}: {optimizer} {loss} batch {batch_size}")
                     res["epochs"].append(epoch_seconds(X, y, n_labels, floor, optimizer, loss, batch_size, args.epochs))
                     gc.collect()
-        for batch_size in (1, 8):  # the default training: SGD, softmax, averaged weights
-            log(f"  {name}: sgd softmax batch {batch_size} + averaging")
-            res["epochs"].append(epoch_seconds(X, y, n_labels, floor, "sgd", "softmax", batch_size, args.epochs,
+        for batch_size in (1, 8):  # the default training: SGD, the default loss, averaged weights
+            log(f"  {name}: sgd {DEFAULT_LOSS} batch {batch_size} + averaging")
+            res["epochs"].append(epoch_seconds(X, y, n_labels, floor, "sgd", DEFAULT_LOSS, batch_size, args.epochs,
                                                average=True))
             gc.collect()
         del floor
@@ -539,7 +540,7 @@ def main(argv=None) -> int:
         gc.collect()
 
     if args.epochs_only or "synthetic" not in matrices:
-        return finish(results, args, wall)
+        return finish(results, "lintext training benchmark", table, Path(args.out), wall, default=float)
     X, y, _, _, n_labels = matrices["synthetic"]
     log("peak memory (subprocesses)")
     for optimizer, dtype in (("adagrad", "float64"), ("adagrad", "float32"), ("adam", "float64"), ("sgd", "float64")):
@@ -558,21 +559,7 @@ def main(argv=None) -> int:
             write_csv(test_csv, zip(*corpus["test"]))
             results["end_to_end"].append(end_to_end(name, train_csv, test_csv, args.repeats, args.jobs, folder, log))
 
-    return finish(results, args, wall)
-
-
-def finish(results, args, wall) -> int:
-    """Print the table and write the JSON."""
-    results["load_end"] = load()
-    results["total_seconds"] = time.perf_counter() - wall
-    text = table(results)
-    print(f"lintext training benchmark ({results['total_seconds']:.0f} s; 1-minute load average "
-          f"{results['load_start']} at the start, {results['load_end']} at the end; {os.cpu_count()} cores)")
-    print(text)
-    out = Path(args.out)
-    write_results(out, {**results, "table": text.splitlines()}, default=float)
-    print(f"written {out}")
-    return 0
+    return finish(results, "lintext training benchmark", table, Path(args.out), wall, default=float)
 
 
 if __name__ == "__main__":
