@@ -215,6 +215,15 @@ def check_probability(option: str, value) -> float:
     return float(value)
 
 
+def dev_temperature(scores: np.ndarray, y: np.ndarray) -> tuple[float, bool, bool]:
+    """:func:`fit_temperature` on dev scores, and whether the dev set is ``separated``: its NLL
+    only falls as T -> 0, so it cannot say how sharp to be, and T stays 1. Returns
+    ``(temperature, at_bound, separated)``."""
+    temperature, at_bound = fit_temperature(scores, y)
+    separated = at_bound and temperature == TEMPERATURE_BOUNDS[0]
+    return (1.0 if separated else temperature), at_bound, separated
+
+
 def calibration_record(scores: np.ndarray, y: np.ndarray, bins: int = ECE_BINS) -> dict:
     """Fit a temperature on dev scores and describe the fit, JSON-ready.
 
@@ -228,10 +237,7 @@ def calibration_record(scores: np.ndarray, y: np.ndarray, bins: int = ECE_BINS) 
     """
     s = np.asarray(scores, dtype=np.float64)
     y = np.asarray(y, dtype=np.int64)
-    temperature, at_bound = fit_temperature(s, y)
-    separated = at_bound and temperature == TEMPERATURE_BOUNDS[0]
-    if separated:  # the dev NLL only falls as T -> 0: the dev set cannot say how sharp to be
-        temperature = 1.0
+    temperature, at_bound, separated = dev_temperature(s, y)
     record = {"method": "temperature", "temperature": temperature, "at_bound": at_bound, "separated": separated,
               "bounds": list(TEMPERATURE_BOUNDS), "documents": int(len(y))}
     for when, t in (("before", 1.0), ("after", temperature)):

@@ -27,9 +27,9 @@ from sklearn.utils.metaestimators import available_if
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, column_or_1d, validate_data
 
+from .confidence import dev_temperature
 from .engine.options import TrainOptions
 from .engine.trainer import fit
-from .confidence import calibration_record
 from .model import softmax
 
 DEFAULTS = TrainOptions()  # one source of defaults: the command line's
@@ -124,7 +124,7 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.temperature_ = None
         if X_dev is not None:  # calibrated on dev by the weights its scores describe (before a refit)
             coef, intercept = (result.coef, result.intercept) if result.refit is None else (result.dev_coef, result.dev_intercept)
-            self.temperature_ = calibration_record(np.asarray(X_dev @ coef) + intercept, y_dev)["temperature"]
+            self.temperature_ = dev_temperature(np.asarray(X_dev @ coef) + intercept, y_dev)[0]
         return self
 
     def __sklearn_tags__(self):
