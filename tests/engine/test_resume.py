@@ -60,3 +60,29 @@ def test_no_checkpoint_after_early_stopping():
     X_dev, y_dev = problem(n=60, seed=1)
     result = fit(X, y, 3, X_dev, y_dev, TrainOptions(learning_rate=3.0, epochs=40, patience=1), keep_checkpoint=True)
     assert result.stopped_early and result.checkpoint is None
+
+
+def test_sharded_dev_scores_equal_the_in_memory_ones_with_a_label_absent():
+    # Definition (lintext.engine.metrics, as sklearn's f1_score(average="macro") without labels=):
+    # macro-F1 averages over the labels present in the dev truth or predictions. Dev rows of
+    # label 2 only, and weights that never predict label 1: the in-memory history's scores
+    # (monitor.dev_scores) and the sharded ones (shards.shard_dev_scores) must agree, and equal
+    # scikit-learn's.
+    from sklearn.metrics import f1_score
+
+    from lintext.engine.monitor import history_row
+    from lintext.engine.shards import shard_dev_scores
+
+    X, y = problem(n=120, k=4)
+    X_dev, y_dev = X[:60], np.where(y[:60] == 1, 2, y[:60])  # label 1 absent from the truth
+    params = np.random.default_rng(3).normal(size=(X.shape[1] + 1, 4))
+    params[:, 1] = -50.0  # ... and from the predictions
+    parts = [(X_dev[a:a + 20], y_dev[a:a + 20]) for a in range(0, 60, 20)]
+    sharded = shard_dev_scores(RowShards([20, 20, 20], X.shape[1], lambda k: parts[k]), params, "softmax")
+    whole = history_row(1, 0.0, 0.1, params, "softmax", (X_dev.indptr, X_dev.indices, X_dev.data), y_dev)
+    pred = (np.asarray(X_dev @ params[:-1]) + params[-1]).argmax(axis=1)
+    assert 1 not in pred and 1 not in y_dev
+    assert sharded["dev_macro_f1"] == pytest.approx(f1_score(y_dev, pred, average="macro"), abs=1e-12)
+    assert sharded["dev_macro_f1"] == pytest.approx(whole["dev_macro_f1"], abs=1e-12)
+    assert sharded["dev_accuracy"] == whole["dev_accuracy"]
+    assert sharded["dev_loss"] == pytest.approx(whole["dev_loss"], rel=1e-12)
