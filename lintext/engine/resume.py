@@ -4,7 +4,8 @@ Successive halving (:mod:`lintext.tuning.halving`) trains every configuration fo
 gives the best ones more: a run that goes on continues from a :func:`snapshot` of its epoch loop
 taken at the end of its budget (before the end-of-run flush of the optimizer state, which would
 change the rounding of later catch-ups): weights, optimizer state, the shuffling generator's state,
-the learning rate, the cumulative L1 penalty and the iterate averages, the early-stopping monitor, the best epoch's weights and the history. Restored by
+the learning rate, the cumulative L1 penalty and the iterate averages, the early-stopping monitor, the best epoch's weights, the history
+and the epochs' objectives (for the divergence checks). Restored by
 :func:`restore`, the epochs that follow are those of an uninterrupted run with the same options.
 """
 
@@ -16,7 +17,7 @@ from .state import STATE_ARRAY_NAMES, KernelState
 
 
 def snapshot(params, state: KernelState, rng, lr, monitor, best_params, best_epoch, history, reference_loss,
-             last_lr) -> dict:
+             last_lr, objectives) -> dict:
     """Copies of everything the epoch loop carries from one epoch to the next."""
     return {
         "params": params.copy(), "state": {name: getattr(state, name).copy() for name in STATE_ARRAY_NAMES + ("info",)},
@@ -24,13 +25,14 @@ def snapshot(params, state: KernelState, rng, lr, monitor, best_params, best_epo
         "l1_total": float(state.l1_total), "step": int(state.step), "pending": bool(state.pending), "rng": rng.bit_generator.state, "lr": lr,
         "monitor": (monitor.best, monitor.since_best), "best_params": None if best_params is None else best_params.copy(),
         "best_epoch": best_epoch, "history": [dict(row) for row in history], "reference_loss": reference_loss,
-        "last_lr": last_lr,
+        "last_lr": last_lr, "objectives": list(objectives),
     }
 
 
 def restore(checkpoint: dict, params, state: KernelState, rng, monitor):
     """Put a :func:`snapshot` back into freshly made ``params``, ``state``, ``rng`` and ``monitor`` (in place);
-    returns ``(lr, best_params, best_epoch, history, reference_loss, last_lr)``."""
+    returns ``(lr, best_params, best_epoch, history, reference_loss, last_lr, objectives)`` (``objectives``: each
+    epoch's train loss plus penalty, which the divergence checks read)."""
     np.copyto(params, checkpoint["params"])
     for name, array in {**checkpoint["state"], **checkpoint["averaged"]}.items():
         np.copyto(getattr(state, name), array)  # into the fresh, cache-aligned arrays
@@ -40,4 +42,5 @@ def restore(checkpoint: dict, params, state: KernelState, rng, monitor):
     monitor.best, monitor.since_best = checkpoint["monitor"]
     best = checkpoint["best_params"]
     return (checkpoint["lr"], None if best is None else best.copy(), checkpoint["best_epoch"],
-            [dict(row) for row in checkpoint["history"]], checkpoint["reference_loss"], checkpoint["last_lr"])
+            [dict(row) for row in checkpoint["history"]], checkpoint["reference_loss"], checkpoint["last_lr"],
+            list(checkpoint["objectives"]))

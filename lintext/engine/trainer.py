@@ -146,18 +146,20 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
             raise ValueError(f"X_dev has {X_dev.shape[1]} columns, X has {X.shape[1]}")
         if X_dev.shape[0] == 0:
             X_dev = y_dev = None
+    if options.label_weights is not None or sample_weight is not None:  # refused before anything is computed
+        where = "lbfgs" if options.optimizer == "lbfgs" else "a sharded feature store" if isinstance(X, RowShards) else None
+        if where is not None:
+            option, value = (("--label-weights", options.label_weights) if options.label_weights is not None
+                             else ("--weight-column", "a weight per document"))
+            raise ConfigError(option, value, f"weights are not taken with {where}; train without them")
     weights = example_weights(options.label_weights, y, n_labels, label_names, sample_weight, "sample_weight")
     dev_weights = None
     if X_dev is not None and (weights is not None or dev_weight is not None):
         per_label = label_weight_vector(options.label_weights, y, n_labels, label_names)
         dev_weights = per_label[y_dev] * (1.0 if dev_weight is None else _checked_weights(dev_weight, len(y_dev), "dev_weight"))
     if options.optimizer == "lbfgs":
-        if weights is not None:
-            raise ConfigError("--label-weights", options.label_weights, "lbfgs takes no weights; use a stochastic optimizer")
         result = fit_lbfgs(X, y, n_labels, X_dev, y_dev, options, progress)
     else:
-        if isinstance(X, RowShards) and weights is not None:
-            raise ConfigError("--label-weights", options.label_weights, "weights are not taken with a sharded feature store")
         result = _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights, dev_weights, resume,
                                  keep_checkpoint)
     if (options.refit and X_dev is not None and options.patience > 0 and resume is None and not keep_checkpoint
@@ -210,7 +212,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     state = kernels.KernelState.new(n_features, n_labels, code, dtype,
                                     initial_sum_sq=float(getattr(rule, "initial_sum_sq", 0.0)),
                                     l1=options.l1 > 0 and options.optimizer == "sgd", average=options.average > 0)
-    steps_per_epoch = -(-n // options.batch_size)
+    sizes = X.sizes if isinstance(X, RowShards) else [n]  # each shard ends in its own last batch
+    steps_per_epoch = sum(-(-size // options.batch_size) for size in sizes)
     avg_from = (options.average - 1) * steps_per_epoch if options.average else 0
     averaged = np.empty_like(params) if options.average else None
     total_weight = float(n if weights is None else weights.sum())
@@ -229,7 +232,17 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     train_losses: list[float] = []
     last_lr = lr
     if resume is not None:  # go on where an earlier run of these options stopped (engine/resume.py)
-        lr, best_params, best_epoch, history, reference_loss, last_lr = restore(resume, params, state, rng, monitor)
+        lr, best_params, best_epoch, history, reference_loss, last_lr, train_losses = restore(
+            resume, params, state, rng, monitor)
+
+    def current_weights():
+        """The weights dev scores and the result use: the averaged ones once averaging has begun."""
+        if averaged is not None and state.step > avg_from:
+            np.divide(state.avg_sum, state.step - avg_from, out=averaged, casting="unsafe")
+            return averaged
+        return params
+
+    current = current_weights()  # (a resumed run may have no epoch left)
     for epoch in range(len(history) + 1, options.epochs + 1):
         started = time.perf_counter()
         loss_sum, finite = 0.0, True
@@ -255,10 +268,7 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
         if epoch == 1:
             reference_loss = max(train_loss, zero_model_loss)
         last_lr = schedule_learning_rate(schedule_code, lr, options.decay, state.step - 1)
-        current = params
-        if averaged is not None and state.step > avg_from:
-            np.divide(state.avg_sum, state.step - avg_from, out=averaged, casting="unsafe")
-            current = averaged
+        current = current_weights()
         row = history_row(epoch, train_loss, last_lr, current, options.loss, dev, y_dev, threads, dev_weights)
         if weights is not None or dev_weights is not None:
             row["weighted_loss"] = True
@@ -284,7 +294,8 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
 
     checkpoint = None
     if keep_checkpoint and not stopped_early:
-        checkpoint = snapshot(params, state, rng, lr, monitor, best_params, best_epoch, history, reference_loss, last_lr)
+        checkpoint = snapshot(params, state, rng, lr, monitor, best_params, best_epoch, history, reference_loss, last_lr,
+                              train_losses)
     kernels.flush(params, state, optimizer_code=code, beta1=hyper["beta1"], beta2=hyper["beta2"],
                   rho=hyper["rho"], threads=threads)
     if early_stopping and best_params is not None:

@@ -86,3 +86,58 @@ def test_sharded_dev_scores_equal_the_in_memory_ones_with_a_label_absent():
     assert sharded["dev_macro_f1"] == pytest.approx(whole["dev_macro_f1"], abs=1e-12)
     assert sharded["dev_accuracy"] == whole["dev_accuracy"]
     assert sharded["dev_loss"] == pytest.approx(whole["dev_loss"], rel=1e-12)
+
+
+def test_a_resumed_run_is_flagged_as_diverged_where_an_uninterrupted_one_is():
+    # The divergence checks read every epoch's objective (trainer._check_course): a checkpoint
+    # carries them, so a run resumed after epoch 1 fails at the epoch, and with the message, of
+    # the run that never stopped.
+    from lintext.errors import DivergenceError
+
+    X, y = problem()
+    options = TrainOptions(loss="softmax", learning_rate=30.0, epochs=6, patience=0, refit=False)
+    with pytest.raises(DivergenceError) as whole:
+        fit(X, y, 3, options=options)
+    first = fit(X, y, 3, options=replace(options, epochs=1), keep_checkpoint=True)
+    with pytest.raises(DivergenceError) as resumed:
+        fit(X, y, 3, options=options, resume=first.checkpoint)
+    assert whole.value.epoch == 2 and resumed.value.epoch == 2 and str(resumed.value) == str(whole.value)
+
+
+@pytest.mark.parametrize("average", [0, 1])
+def test_resuming_with_no_epoch_left_returns_the_checkpointed_run(average):
+    X, y = problem()
+    options = TrainOptions(loss="softmax", learning_rate=0.5, epochs=3, patience=0, average=average, refit=False)
+    run = fit(X, y, 3, options=options, keep_checkpoint=True)
+    again = fit(X, y, 3, options=options, resume=run.checkpoint)
+    assert np.array_equal(again.coef, run.coef) and np.array_equal(again.intercept, run.intercept)
+
+
+def test_averaging_from_epoch_two_begins_after_the_last_step_of_epoch_one_with_shards():
+    # Each shard ends in its own last batch: shards of 50 rows at batch size 40 take 2 steps each,
+    # 6 an epoch (not ceil(150 / 40) = 4). Averaging from epoch 2 over a run of one epoch has
+    # averaged nothing: the weights are the raw ones, bit for bit.
+    X, y = problem(n=150)
+    parts = [(X[a:a + 50], y[a:a + 50]) for a in range(0, 150, 50)]
+    shards = RowShards([50, 50, 50], X.shape[1], lambda k: parts[k])
+    options = TrainOptions(loss="softmax", learning_rate=0.5, epochs=1, patience=0, batch_size=40, refit=False)
+    raw = fit(shards, None, 3, options=replace(options, average=0))
+    late = fit(shards, None, 3, options=replace(options, average=2))
+    assert np.array_equal(late.coef, raw.coef) and np.array_equal(late.intercept, raw.intercept)
+
+
+@pytest.mark.parametrize("optimizer, weights, option", [
+    ("sgd", {"options": {"label_weights": "balanced"}}, "--label-weights"),
+    ("lbfgs", {"sample_weight": True}, "--weight-column"),
+])
+def test_weights_where_they_are_not_taken_are_refused_naming_the_option(optimizer, weights, option):
+    from lintext.errors import ConfigError
+
+    X, y = problem(n=100)
+    parts = [(X[:50], y[:50]), (X[50:], y[50:])]
+    data = (RowShards([50, 50], X.shape[1], lambda k: parts[k]), None) if optimizer == "sgd" else (X, y)
+    options = TrainOptions(optimizer=optimizer, epochs=1, **weights.get("options", {}))
+    sample_weight = np.ones(100) if weights.get("sample_weight") else None
+    with pytest.raises(ConfigError, match="weights are not taken") as caught:
+        fit(*data, 3, options=options, sample_weight=sample_weight)
+    assert caught.value.option == option
