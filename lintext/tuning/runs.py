@@ -147,8 +147,7 @@ def train_run(data: RunData, index: int, options: TrainOptions, n_labels: int, e
     X, y, X_dev, y_dev = data.open(arrays)
     seen: list[dict] = list(resume["history"]) if resume is not None else []
     budget = options.epochs if epochs is None else min(int(epochs), options.epochs)
-    # no refit: a run's weights are those its dev scores describe, which rank it
-    trained = replace(options, epochs=budget, threads=options.threads if threads is None else threads, refit=False)
+    trained = replace(options, epochs=budget, threads=options.threads if threads is None else threads)
     earlier = (resume or {}).get("times", (0.0, 0.0))
     started, cpu = time.perf_counter() - earlier[0], time.process_time() - earlier[1]
     try:

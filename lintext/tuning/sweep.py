@@ -193,7 +193,8 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
     SweepResult
     """
     report = progress or (lambda event: None)
-    base = TrainOptions.from_mapping(options).validate()
+    # no refit: a run's weights are those its dev scores describe, which rank it (and its model says so)
+    base = replace(TrainOptions.from_mapping(options), refit=False).validate()
     grid = make_grid(base, optimizers, learning_rates)
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 0):
         raise ConfigError("--workers", workers, "must be a whole number of processes (0 = one per core)")

@@ -93,6 +93,7 @@ def test_saved_best_run_is_the_best_row_of_the_table(small_split, tmp_path):
     assert json.loads((out / "sweep.json").read_text())["best_run"] == int(best_row["run"])
 
     model = open_model(out / "best")
+    assert model.info["training"]["refit"] is False and "refit" not in model.info  # a run is not refit
     assert model.info["training"]["optimizer"] == best_row["optimizer"]
     assert model.info["training"]["learning_rate"] == float(best_row["learning_rate"])
     dev = read_corpus(small_split["dev"])
