@@ -123,8 +123,7 @@ class LinTextClassifier(ClassifierMixin, BaseEstimator):
         self.history_ = result.history
         self.temperature_ = None
         if X_dev is not None:  # calibrated on dev by the weights its scores describe (before a refit)
-            coef, intercept = (result.coef, result.intercept) if result.refit is None else (result.dev_coef, result.dev_intercept)
-            self.temperature_ = dev_temperature(np.asarray(X_dev @ coef) + intercept, y_dev)[0]
+            self.temperature_ = dev_temperature(np.asarray(X_dev @ result.dev_coef) + result.dev_intercept, y_dev)[0]
         return self
 
     def __sklearn_tags__(self):

@@ -112,8 +112,9 @@ class TrainResult:
     feature_stats: dict[str, np.ndarray]
     options: TrainOptions = field(default_factory=TrainOptions)
     checkpoint: dict | None = None  # fit(..., keep_checkpoint=True): where to go on from (engine/resume.py)
-    # options.refit: {"epochs", "documents"} of the second pass on train and dev together, and the
-    # first pass's weights at its best epoch (what the dev scores in the history describe)
+    # options.refit: {"epochs", "documents"} of the second pass on train and dev together (None without
+    # one); dev_coef and dev_intercept: the weights the dev scores in the history describe, the first
+    # pass's at its best epoch (fit sets them: coef and intercept themselves without a refit)
     refit: dict | None = None
     dev_coef: np.ndarray | None = None
     dev_intercept: np.ndarray | None = None

@@ -164,7 +164,8 @@ def fit(X, y, n_labels: int, X_dev=None, y_dev=None, options: TrainOptions | Non
                                  keep_checkpoint)
     if (options.refit and X_dev is not None and options.patience > 0 and resume is None and not keep_checkpoint
             and not isinstance(X, RowShards) and not isinstance(X_dev, RowShards)):
-        result = _refit(result, X, y, n_labels, X_dev, y_dev, options, progress, sample_weight, dev_weight, label_names)
+        return _refit(result, X, y, n_labels, X_dev, y_dev, options, progress, sample_weight, dev_weight, label_names)
+    result.dev_coef, result.dev_intercept = result.coef, result.intercept
     return result
 
 

@@ -285,4 +285,4 @@ def test_no_refit_without_early_stopping():
     X, y = problem()
     no_dev = fit(X, y, 3, options=TrainOptions(epochs=3))
     no_patience = fit(X[:250], y[:250], 3, X[250:], y[250:], TrainOptions(epochs=3, patience=0))
-    assert no_dev.refit is None and no_patience.refit is None and no_patience.dev_coef is None
+    assert no_dev.refit is None and no_patience.refit is None and no_patience.dev_coef is no_patience.coef
