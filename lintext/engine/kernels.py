@@ -395,9 +395,13 @@ def _work_space(lengths, params, s: Settings, prefetch=True, remedies: Remedies 
     n_rows, n_labels = params.shape
     n_batches = -(-n // batch_size)
     cum = np.zeros(n_batches + 1)
+    l1 = remedies.l1 if remedies is not None and state is not None else 0.0
+    rates = None  # SGD's step sizes of the epoch's batches, for the L2 catch-up and the L1 penalty
+    if s.optimizer_code == SGD and (s.l2 > 0.0 or l1 > 0.0):
+        rates = np.array([schedule_learning_rate(s.schedule_code, s.learning_rate, s.decay, s.step + b)
+                          for b in range(n_batches)])
     if s.optimizer_code == SGD and s.l2 > 0.0:
-        rates = [schedule_learning_rate(s.schedule_code, s.learning_rate, s.decay, s.step + b) for b in range(n_batches)]
-        cum[1:] = np.cumsum(np.log1p(np.asarray(rates) * s.l2))
+        cum[1:] = np.cumsum(np.log1p(rates * s.l2))
     n_powers = 2 * n_batches + 2 if s.kind == CATCH_UP_STATE else 0
     bases = (s.beta1, s.beta2) if s.optimizer_code == ADAM else (s.rho, s.rho)
     powers = np.empty((2, n_powers))
@@ -413,10 +417,8 @@ def _work_space(lengths, params, s: Settings, prefetch=True, remedies: Remedies 
             if cum[-1] > 700.0:
                 raise ValueError("--l2 shrinks the weights by more than e^-700 in one epoch: too strong to average")
             shrink_sums = np.concatenate(([0.0], np.cumsum(np.exp(-cum[1:]))))
-        if s.optimizer_code == SGD and remedies.l1 > 0.0:
-            rates = np.array([schedule_learning_rate(s.schedule_code, s.learning_rate, s.decay, s.step + b)
-                              for b in range(n_batches)])
-            l1_total = state.l1_total + remedies.l1 * np.cumsum(rates)
+        if s.optimizer_code == SGD and l1 > 0.0:
+            l1_total = state.l1_total + l1 * np.cumsum(rates)
     cap = int(np.add.reduceat(lengths, np.arange(0, n, batch_size)).max()) if n else 0
     width = min(batch_size, n)
     max_rows = (min(cap, n_rows - 1) if s.lazy else n_rows - 1) + 1  # rows of a step, the bias last

@@ -175,8 +175,7 @@ def _refit(first: TrainResult, X, y, n_labels, X_dev, y_dev, options, progress, 
     number of epochs (the dev set has chosen when to stop; then its documents are worth more as
     training data). Same options and seed, no dev scores; the result keeps the first pass's
     history and best epoch, and its weights as ``dev_coef`` / ``dev_intercept``."""
-    X_all, y_all = check_training_arrays(sp.vstack([X, X_dev], format="csr"), np.concatenate([y, y_dev]),
-                                         n_labels, "X", "y")
+    X_all, y_all = sp.vstack([X, X_dev], format="csr"), np.concatenate([y, y_dev])  # both checked by fit
     own = None
     if sample_weight is not None or dev_weight is not None:
         own = np.concatenate([np.ones(len(y)) if sample_weight is None else np.asarray(sample_weight, dtype=np.float64),
