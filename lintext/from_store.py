@@ -159,7 +159,7 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
             every = store.sources("data", k)
             sources += [every[i] for i in rows.tolist()]
     found = np.concatenate(records) if records else np.zeros(0, dtype=np.int64)
-    texts = _texts_by_record(store, set(found.tolist()) | sample)
+    texts = texts_by_record(store, set(found.tolist()) | sample)
     by_record = np.argsort(found, kind="stable")  # the rows in file order, as training from the file has them
     order = found[by_record].tolist()
     X = sp.vstack(blocks, format="csr")[by_record] if blocks else sp.csr_matrix((0, store.n_features))
@@ -170,8 +170,9 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
                            hashed_texts=hashed)
 
 
-def _texts_by_record(store: FeatureStore, records: set, source: str = "data") -> dict:
-    reader = ReaderOptions(**store.meta["reader"])
+def texts_by_record(store: FeatureStore, records: set, source: str = "data") -> dict:
+    """The texts of the given record numbers of the store's ``source`` file (``data`` or ``dev``), by number."""
+    reader = ReaderOptions(**store.meta["reader"])  # "header" is missing from older stores: True, as they were read
     out = {}
     if not records:
         return out
@@ -308,7 +309,7 @@ def store_dev_errors(model, dev: StorePart, X_dev, y_dev) -> dict:
     dev_errors(model, _DevRows(y_dev, sources, texts), X_dev)
     asked = sorted(texts.asked)
     source = "dev" if store.meta.get("split", {}).get("dev") == "file" else "data"
-    found = _texts_by_record(store, {int(records[i]) for i in asked}, source)
+    found = texts_by_record(store, {int(records[i]) for i in asked}, source)
     return dev_errors(model, _DevRows(y_dev, sources, {i: found[int(records[i])] for i in asked}), X_dev)
 
 

@@ -240,7 +240,8 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
         parts = {part: w.close() for part, w in writers.items()}
         split = ({"dev": "file", "seed": None} if dev is not None else
                  {"dev": float(dev_fraction) if held.any() else 0.0, "seed": int(seed) if held.any() else None})
-        reader_json = {"format": reader.format, "text_column": reader.text_column, "label_column": reader.label_column}
+        reader_json = {"format": reader.format, "text_column": reader.text_column, "label_column": reader.label_column,
+                       "header": reader.header}  # how to read the source's texts back (a store without "header": True)
         write_store_json(tmp, feat, names, parts, sources, reader_json, split | {"fitted": fitted is None})
 
     return open_store(atomic_directory(Path(out), fill, kind="store", force=force))

@@ -274,3 +274,21 @@ def test_featurize_replaces_only_a_store(small_split, tmp_path):
     refused = run("featurize", small_split["train"], "--out", tmp_path / "mine", "-q")
     assert refused.exit_code == 2 and len(refused.output.strip().splitlines()) == 1
     assert (tmp_path / "mine" / "notes.txt").read_text() == "keep me"
+
+
+def test_texts_read_back_from_a_headerless_csv_are_its_rows(tmp_path):
+    # Reference: Python's csv module reading the same file (no header line: record k is row k).
+    import csv
+
+    from lintext.from_store import texts_by_record
+    from lintext.text.readers import ReaderOptions
+
+    path = tmp_path / "plain.csv"
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        csv.writer(fh, lineterminator="\n").writerows((label, text) for text, label in small_corpus_rows(n_per_label=10))
+    with open(path, encoding="utf-8", newline="") as fh:
+        rows = list(csv.reader(fh))
+    reader = ReaderOptions(header=False, label_column="1", text_column="2")
+    store = featurize(path, tmp_path / "s", reader=reader, dev_fraction=0)
+    wanted = {0, 1, 7, len(rows) - 1}
+    assert texts_by_record(store, wanted) == {k: rows[k][1] for k in wanted}
