@@ -103,6 +103,9 @@ def store_data(path, dev=None, reader: ReaderOptions | None = None, featurizer: 
     ``stream``: read the parts shard by shard (True), stack them in memory (False), or shard by
     shard only when a part has several shards (None).
     """
+    if reader is not None and reader.weight_column is not None:
+        raise ConfigError("--weight-column", reader.weight_column, "a feature store keeps no per-document weights; "
+                          "train from the source file to weight its documents")
     store = open_store(path).check_sources()
     check_config(store, featurizer)
     if not store.has("data"):

@@ -292,3 +292,16 @@ def test_texts_read_back_from_a_headerless_csv_are_its_rows(tmp_path):
     store = featurize(path, tmp_path / "s", reader=reader, dev_fraction=0)
     wanted = {0, 1, 7, len(rows) - 1}
     assert texts_by_record(store, wanted) == {k: rows[k][1] for k in wanted}
+
+
+def test_a_weight_column_with_a_store_is_refused(small_split, tmp_path):
+    # A store keeps no weights: --weight-column is refused by name rather than dropped (training from
+    # the file weights the documents), also with a dev file that has no such column.
+    from lintext.text.readers import ReaderOptions
+
+    featurize(small_split["train"], tmp_path / "s", dev_fraction=0)
+    weighted = ReaderOptions(weight_column="w")
+    for dev in (None, small_split["dev"]):
+        with pytest.raises(ConfigError, match="--weight-column='w': a feature store keeps no per-document weights"):
+            prepare_data(tmp_path / "s", dev=dev, reader=weighted)
+    assert prepare_data(tmp_path / "s", dev=small_split["dev"]).y_dev.shape == (15,)
