@@ -23,8 +23,7 @@ from .evidence import rare_columns, training_extras
 from .explanation import dev_errors
 from .text.config import FeaturizerConfig
 from .text.readers import ReaderOptions, iter_records, read_corpus
-from .text.store import PARTS, FeatureStore, is_store, open_store
-from .text.streaming import SHARD_ROWS, featurize_store
+from .text.store import PARTS, SHARD_ROWS, FeatureStore, is_store, open_store
 
 
 @dataclass
@@ -343,6 +342,8 @@ def featurize(data, out, dev=None, dev_fraction: float = 0.1, featurizer: Featur
     (to evaluate or predict with that model from a store) instead of fitting one; there is then
     no dev split. Everything else: :func:`lintext.text.streaming.featurize_store`.
     """
+    from .text.streaming import featurize_store  # scikit-learn's vectorizers: only when featurizing
+
     fitted = None
     if featurizer_from is not None:
         if is_store(featurizer_from):

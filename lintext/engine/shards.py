@@ -29,7 +29,7 @@ from typing import Callable, Iterator
 import numpy as np
 import scipy.sparse as sp
 
-from . import kernels, losses
+from . import losses
 from .metrics import macro_f1
 
 
@@ -97,6 +97,8 @@ def epoch_pieces(X, y, rng: np.random.Generator, dtype, check: Callable | None =
 def shard_dev_scores(dev: RowShards, params, loss: str, threads=1, check: Callable | None = None) -> dict:
     """Dev loss, accuracy and macro-F1 over dev rows kept in shards, one shard at a time (the same
     values as :func:`lintext.engine.monitor.dev_scores` on all rows, up to the rounding of the loss's sum)."""
+    from . import kernels  # numba loads on first use, not with the module (lintext.pipeline imports this one)
+
     total, truth, predicted = 0.0, [], []
     for k in range(len(dev.sizes)):
         Xk, yk = dev.load(k)

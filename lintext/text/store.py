@@ -42,6 +42,7 @@ STORE_KIND = "lintext feature store"
 FORMAT_VERSION = 1
 PARTS = ("data", "dev")
 ARRAYS = ("data", "indices", "indptr", "labels", "records")
+SHARD_ROWS = 100_000  # rows per shard (the default): the demo and fortunes corpora are one shard each
 
 
 def is_store(path) -> bool:

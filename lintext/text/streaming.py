@@ -32,7 +32,6 @@ from typing import Callable, Iterable, Iterator
 
 import numpy as np
 import scipy.sparse as sp
-from sklearn.feature_extraction.text import CountVectorizer
 
 from ..errors import ConfigError, InputError
 from .chunked_counts import analyzed_ids, growing_vocabulary, kept_by_frequency
@@ -40,9 +39,7 @@ from .config import FeaturizerConfig
 from .featurizer import Featurizer, df_mask, hashed_counts
 from ..files import atomic_directory
 from .readers import ReaderOptions, iter_records
-from .store import ShardWriter, fingerprint, open_store, read_sources, shard_writer, write_store_json
-
-SHARD_ROWS = 100_000  # rows per shard: the demo and fortunes corpora are one shard each
+from .store import SHARD_ROWS, ShardWriter, fingerprint, open_store, read_sources, shard_writer, write_store_json
 
 
 @dataclass
@@ -105,6 +102,8 @@ class VocabularyCounter:
     """Document frequency and total count of every n-gram of the texts added, chunk by chunk."""
 
     def __init__(self, config: FeaturizerConfig):
+        from sklearn.feature_extraction.text import CountVectorizer  # loaded when featurizing, not with the module
+
         self.config = config
         kinds = [("word", config.ngrams)] + ([("char_wb", config.char_ngrams)] if config.char_ngrams else [])
         self.analyzers = [CountVectorizer(analyzer=a, ngram_range=tuple(r), lowercase=config.lowercase).build_analyzer()

@@ -3,6 +3,8 @@
 Each command imports what it needs inside its function, so asking for help costs only Python,
 typer and rich. The check runs the real app in a fresh interpreter and reads ``sys.modules``
 there (Python's own record of what was imported); timings live in scripts/bench_end_to_end.py.
+Importing ``lintext.pipeline`` (every predict and evaluate) loads neither numba nor scikit-learn:
+the compiled kernels and the vectorizers load when training or featurizing first needs them.
 """
 
 from __future__ import annotations
@@ -58,3 +60,11 @@ def test_the_check_sees_a_heavy_import():
                           json.dumps([["--help"]]), json.dumps(HEAVY)], capture_output=True, text=True, cwd=ROOT,
                          timeout=120)
     assert "sklearn" in json.loads(out.stdout.rsplit("loaded: ", 1)[1])
+
+
+def test_importing_the_pipeline_loads_neither_numba_nor_scikit_learn():
+    check = ("import json, sys, lintext.pipeline; "
+             "print('\\nloaded: ' + json.dumps(sorted({n.split('.')[0] for n in sys.modules} & {'numba', 'sklearn'})))")
+    out = subprocess.run([sys.executable, "-c", check], capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout.rsplit("loaded: ", 1)[1]) == []
