@@ -24,9 +24,8 @@ from lintext.engine.reference import adagrad_paper_replay, cumulative_l1_replay,
 from lintext.engine.trainer import fit, label_weight_vector
 from lintext.errors import ConfigError, DivergenceError
 
-from .test_kernels import random_problem
+from .test_kernels import LRS, random_problem
 
-LRS = {"sgd": 0.3, "adagrad": 0.3, "adadelta": 1.0, "rmsprop": 0.01, "adam": 0.02, "ftrl": 0.3}
 
 
 def kernel_run(name, X, y, epochs=3, batch_size=2, lazy=True, l2=0.0, l1=0.0, schedule="constant", decay=0.0,
@@ -138,12 +137,22 @@ def test_trainer_average_is_the_mean_of_the_iterates():
 
 
 def test_averaged_weights_drive_dev_scores_and_early_stopping():
+    # The dev loss of the best epoch is that of the returned (averaged) weights, scored here by
+    # SciPy's log-softmax; and they are not the raw iterates (a run without averaging differs).
+    from dataclasses import replace
+
+    from scipy.special import log_softmax
+
     X, y = random_problem(n=200, n_features=30, density=0.2, seed=4)
-    result = fit(X[:150], y[:150], 3, X[150:], y[150:], TrainOptions(epochs=6, average=1, patience=3, learning_rate=0.3, loss="softmax",
-                                                                     stop_metric="dev-loss", refit=False))
+    options = TrainOptions(epochs=6, average=1, patience=3, learning_rate=0.3, loss="softmax", stop_metric="dev-loss",
+                           refit=False)
+    result = fit(X[:150], y[:150], 3, X[150:], y[150:], options)
+    raw = fit(X[:150], y[:150], 3, X[150:], y[150:], replace(options, average=0))
     best = result.history[result.best_epoch - 1]
-    scores = X[150:] @ result.coef + result.intercept
-    assert losses.mean_loss("softmax", scores, y[150:]) == pytest.approx(best["dev_loss"], rel=1e-12)
+    scores = np.asarray(X[150:] @ result.coef) + result.intercept
+    assert -log_softmax(scores, axis=1)[np.arange(50), y[150:]].mean() == pytest.approx(best["dev_loss"], rel=1e-12)
+    assert not np.allclose(result.coef, raw.coef)
+    assert [r["dev_loss"] for r in result.history] != [r["dev_loss"] for r in raw.history]
 
 
 # --------------------------------------------------------------------------- AdaGrad's start
@@ -264,13 +273,22 @@ def test_example_weights_in_the_kernel_match_the_specification(name):
 def test_weight_two_is_counting_an_example_twice_in_the_loss():
     # The weighted loss is sum(w_i * loss_i) / sum(w_i): with weights 2 and 1 it equals the mean
     # over the rows with the first repeated (worked example of the definition).
+    # Checked at the second epoch of full-batch steps, whose losses are taken at the weights after
+    # the first (read from a one-epoch run), by SciPy's log-softmax over the rows with the first repeated.
+    from scipy.special import log_softmax
+
     X, y = random_problem(n=10, seed=10)
     w = np.ones(10)
     w[0] = 2.0
-    weighted = fit(X, y, 3, options=TrainOptions(epochs=1, patience=0, batch_size=1000, loss="softmax"), sample_weight=w)
-    S = np.zeros((11, 3))  # the first (full-batch) epoch scores the all-zero model: every loss is ln 3
-    assert weighted.history[0]["train_loss"] == pytest.approx(losses.mean_loss("softmax", S, np.r_[y[0], y]))
-    assert weighted.history[0]["weighted_loss"] is True
+    options = TrainOptions(epochs=2, patience=0, batch_size=1000, loss="softmax", average=0, learning_rate=0.5)
+    weighted = fit(X, y, 3, options=options, sample_weight=w)
+    after_one = fit(X, y, 3, options=TrainOptions(**{**options.to_json(), "epochs": 1}), sample_weight=w)
+    rows = np.r_[0, np.arange(10)]
+    S = np.asarray(X[rows] @ after_one.coef) + after_one.intercept
+    expected = -log_softmax(S, axis=1)[np.arange(11), y[rows]].mean()
+    assert abs(expected - np.log(3)) > 1e-3  # not the all-zero model's loss, which any weights give
+    assert weighted.history[1]["train_loss"] == pytest.approx(expected, rel=1e-12)
+    assert weighted.history[1]["weighted_loss"] is True
 
 
 # --------------------------------------------------------------------------- divergence
