@@ -17,7 +17,7 @@ import pytest
 import scipy.sparse as sp
 from sklearn.utils.class_weight import compute_class_weight
 
-from lintext.engine import kernels, losses, schedules
+from lintext.engine import kernels, schedules
 from lintext.engine import optimizers as optim
 from lintext.engine.options import TrainOptions
 from lintext.engine.reference import adagrad_paper_replay, cumulative_l1_replay, ftrl_replay, reference_epoch
