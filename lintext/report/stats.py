@@ -118,12 +118,13 @@ def size_key(values) -> np.ndarray:
 
 
 def weight_rows(model, columns) -> np.ndarray:
-    """The rows ``columns`` of ``model.coef`` as float64 (no copy when they are all of them, in order)."""
-    coef = np.asarray(model.coef, dtype=np.float64)
+    """The rows ``columns`` of ``model.coef`` as float64 (no copy when they are all of them, in order,
+    and already float64); only the rows taken are widened (a hashing model uses few of its rows)."""
+    coef = model.coef
     columns = np.asarray(columns, dtype=np.int64)
     if len(columns) == coef.shape[0] and (len(columns) == 0 or (columns[0] == 0 and (np.diff(columns) == 1).all())):
-        return coef
-    return coef[columns]
+        return np.asarray(coef, dtype=np.float64)
+    return np.asarray(coef[columns], dtype=np.float64)
 
 
 # ---------------------------------------------------------------- frequency bins

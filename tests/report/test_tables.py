@@ -123,3 +123,30 @@ def test_largest_per_column_with_nan_sorts_everything():
     values = np.array([[np.nan, 1.0], [2.0, np.nan], [0.5, 0.5]])
     got = largest_per_column(values, np.arange(3), 2, [0, 1])
     assert [g.tolist() for g in got] == [np.lexsort((np.arange(3), -values[:, j]))[:2].tolist() for j in (0, 1)]
+
+
+def test_weight_rows_widens_only_the_rows_it_takes():
+    # A hashing model uses few of its rows. Reference: NumPy's whole-array conversion then indexing
+    # (``coef.astype(float64)[columns]``); the rows taken must be those, bit for bit, while the
+    # memory used stays near their size (80 KB), far below a float64 copy of every row (16 MB).
+    import tracemalloc
+    from types import SimpleNamespace
+
+    from lintext.report.stats import weight_rows
+
+    rng = np.random.default_rng(3)
+    coef = rng.standard_normal((200_000, 10)).astype(np.float32)
+    columns = np.sort(rng.choice(coef.shape[0], 1000, replace=False))
+    model = SimpleNamespace(coef=coef)
+    tracemalloc.start()
+    try:
+        rows = weight_rows(model, columns)
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert rows.dtype == np.float64 and np.array_equal(rows, coef.astype(np.float64)[columns])
+    assert peak < 1_000_000, peak
+    every = weight_rows(model, np.arange(coef.shape[0]))  # all rows in order: the whole array, widened
+    assert np.array_equal(every, coef.astype(np.float64))
+    wide = SimpleNamespace(coef=coef.astype(np.float64))
+    assert weight_rows(wide, np.arange(coef.shape[0])) is wide.coef  # already float64: no copy
