@@ -18,7 +18,7 @@ toward the wrong label comes from a feature in at most ``RARE_DF`` training docu
 
 from __future__ import annotations
 
-from typing import Iterator
+from typing import Callable, Iterator
 
 import numpy as np
 
@@ -152,7 +152,8 @@ def _explanations(model, data, texts, reader, top, chunk_size) -> Iterator[dict]
 # ---------------------------------------------------------------- dev errors
 
 
-def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_FEATURES) -> dict:
+def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_FEATURES,
+               texts_of: Callable[[list], list] | None = None) -> dict:
     """The dev documents the model gets wrong, most confident first, JSON-ready.
 
     Parameters
@@ -160,6 +161,8 @@ def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_
     model : the trained (and calibrated) :class:`~lintext.model.Model`.
     corpus : the dev :class:`~lintext.text.readers.Corpus`; ``X`` its featurized matrix.
     keep : how many errors to keep; features : contributions kept per error.
+    texts_of : the texts of the rows shown, given their row numbers (default: ``corpus.texts``; a
+        feature store reads them back from its source).
 
     Returns
     -------
@@ -190,7 +193,7 @@ def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_
         top3 = rank[:HINGE_TOP]
         hinges[i] = bool(((df[cols[top3]] <= RARE_DF) & (contrib[top3] > 0)).any())
     chosen = wrong[np.lexsort((wrong, -strength[wrong]))][:keep]
-    texts = [corpus.texts[i] for i in chosen]
+    texts = texts_of(chosen.tolist()) if texts_of is not None else [corpus.texts[i] for i in chosen]
     shown = []
     if len(chosen):
         records = explain_matrix(model, X[chosen], texts, features, [corpus.sources[i] for i in chosen])

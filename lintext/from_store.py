@@ -271,26 +271,14 @@ def store_evaluation(model, data, unknown_labels: str = "count"):
 
 
 class _DevRows:
-    """What :func:`lintext.explanation.dev_errors` reads of a dev corpus, for a store's dev part in file
-    order: label indices, sources, and texts (read back from the source only for the rows asked for)."""
+    """What :func:`lintext.explanation.dev_errors` reads of a dev corpus besides texts, for a store's dev
+    part: label indices and sources."""
 
-    def __init__(self, y, sources, texts):
-        self.y, self.sources, self.texts = y, sources, texts
+    def __init__(self, y, sources):
+        self.y, self.sources = y, sources
 
     def label_indices(self, names):
         return self.y
-
-
-class _Asked(dict):
-    """Texts by row; a row not read yet gives "" and is remembered in ``asked``."""
-
-    def __init__(self):
-        super().__init__()
-        self.asked: set = set()
-
-    def __missing__(self, row):
-        self.asked.add(row)
-        return ""
 
 
 def dev_sample(dev: StorePart, labels: list[str]):
@@ -302,17 +290,16 @@ def dev_sample(dev: StorePart, labels: list[str]):
 
 def store_dev_errors(model, dev: StorePart, X_dev, y_dev) -> dict:
     """:func:`lintext.explanation.dev_errors` over the first shard of a store's dev part (``X_dev``, ``y_dev``:
-    :func:`dev_sample`): a first pass finds the errors it shows, their texts are read back from the source,
-    and a second pass writes their snippets."""
+    :func:`dev_sample`); the texts of the errors shown are read back from the source by record number."""
     store, part = dev.store, dev.part
     records = np.asarray(store.load_shard(part, 0).records)
-    sources = store.sources(part, 0)
-    texts = _Asked()
-    dev_errors(model, _DevRows(y_dev, sources, texts), X_dev)
-    asked = sorted(texts.asked)
     source = "dev" if store.meta.get("split", {}).get("dev") == "file" else "data"
-    found = texts_by_record(store, {int(records[i]) for i in asked}, source)
-    return dev_errors(model, _DevRows(y_dev, sources, {i: found[int(records[i])] for i in asked}), X_dev)
+
+    def texts_of(rows: list) -> list:
+        found = texts_by_record(store, {int(records[i]) for i in rows}, source)
+        return [found[int(records[i])] for i in rows]
+
+    return dev_errors(model, _DevRows(y_dev, store.sources(part, 0)), X_dev, texts_of=texts_of)
 
 
 def store_score_rows(model, data):

@@ -305,3 +305,21 @@ def test_a_weight_column_with_a_store_is_refused(small_split, tmp_path):
         with pytest.raises(ConfigError, match="--weight-column='w': a feature store keeps no per-document weights"):
             prepare_data(tmp_path / "s", dev=dev, reader=weighted)
     assert prepare_data(tmp_path / "s", dev=small_split["dev"]).y_dev.shape == (15,)
+
+
+def test_dev_errors_of_a_store_run_once_and_equal_the_file(tmp_path, monkeypatch):
+    # Reference: the dev errors of the same model trained from the file (texts from the corpus in memory).
+    import lintext.from_store
+
+    rows = small_corpus_rows(n_per_label=40)
+    names = sorted({label for _, label in rows})
+    noisy = [(t, names[(names.index(label) + 1) % 3] if k % 5 == 0 else label) for k, (t, label) in enumerate(rows)]
+    path = write_csv(tmp_path / "noisy.csv", noisy)  # every fifth label moved: dev errors to show
+    calls = []
+    real = lintext.from_store.dev_errors
+    monkeypatch.setattr(lintext.from_store, "dev_errors", lambda *a, **k: calls.append(1) or real(*a, **k))
+    featurize(path, tmp_path / "s", seed=2)
+    options = {"epochs": 2, "seed": 2}
+    from_store, from_file = build_model(tmp_path / "s", options=options), build_model(path, options=options)
+    assert calls == [1] and from_store.info["dev_errors"]["shown"]
+    assert from_store.info["dev_errors"] == from_file.info["dev_errors"]
