@@ -140,8 +140,9 @@ def train_run(data: RunData, index: int, options: TrainOptions, n_labels: int, e
     ``epochs``: a budget below ``options.epochs`` (successive halving); a run that uses all of it
     without stopping early has the status ``finished at budget`` and a ``checkpoint`` to go on from
     (``resume``; :mod:`lintext.engine.resume`) until the sweep prunes or promotes it; its row's
-    times then add up over the budgets. ``save_to``: write the weights to ``save_to/run-<index>.npz``
-    and return ``None`` for them. ``threads``: numba threads of this run (a cluster worker's share;
+    times then add up over the budgets, and its weights are neither returned nor saved (the
+    checkpoint holds them). ``save_to``: write the weights to ``save_to/run-<index>.npz`` and
+    return ``None`` for them. ``threads``: numba threads of this run (a cluster worker's share;
     the weights do not depend on it).
     """
     X, y, X_dev, y_dev = data.open(arrays)
@@ -163,13 +164,15 @@ def train_run(data: RunData, index: int, options: TrainOptions, n_labels: int, e
     checkpoint = result.checkpoint
     if checkpoint is not None:
         checkpoint["times"] = (seconds, cpu)
-    weights = {"coef": result.coef, "intercept": result.intercept,
-               **{f"stat_{k}": v for k, v in result.feature_stats.items()}}
     if result.stopped_early:
         status = "stopped early"
     else:
         status = "finished" if budget == options.epochs else BUDGET_USED
     row = run_row(index, options, result.history, result.best_epoch, status, seconds, cpu)
+    if status == BUDGET_USED:  # pruned or resumed from its checkpoint (which holds the weights): none kept
+        return row, result.history, None, checkpoint
+    weights = {"coef": result.coef, "intercept": result.intercept,
+               **{f"stat_{k}": v for k, v in result.feature_stats.items()}}
     if save_to is not None:
         np.savez(Path(save_to) / f"run-{index}.npz", **weights)
         weights = None

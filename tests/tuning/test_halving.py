@@ -10,8 +10,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from lintext.engine.options import TrainOptions
 from lintext.errors import ConfigError
+from lintext.pipeline import prepare_data
 from lintext.tuning.halving import halving_budgets
+from lintext.tuning.runs import BUDGET_USED, RunData, share_arrays, train_run
 from lintext.tuning.sweep import sweep
 
 OPTIONS = {"epochs": 9, "patience": 3}
@@ -68,3 +71,26 @@ def test_halving_page_and_table_say_pruned(small_split, tmp_path):
         ["pruned at epoch 1", "pruned at epoch 1", "pruned at epoch 2"]
     out = result.save(tmp_path / "sweep")
     assert "pruned at epoch 1" in (out / "sweep.csv").read_text() and "pruned at epoch 2" in (out / "sweep.html").read_text()
+
+
+def test_a_run_at_its_budget_keeps_no_weights_and_goes_on_from_its_checkpoint(small_split, tmp_path):
+    # A run that used its budget is pruned or resumed from its checkpoint: its weights are neither
+    # written (run-<i>.npz) nor returned. Reference: the same configuration trained without a break
+    # (lintext.engine.resume's claim, bit for bit), whose weights the resumed run must end with.
+    prepared = prepare_data(small_split["train"], small_split["dev"])
+    data = RunData(str(tmp_path), share_arrays(tmp_path, prepared.X, prepared.y, prepared.X_dev, prepared.y_dev))
+    options = TrainOptions(optimizer="adagrad", learning_rate=0.1, epochs=4, patience=0, refit=False)
+    n_labels = len(prepared.labels)
+    for save_to in (str(tmp_path), None):  # local processes save to the folder; a cluster sends them back
+        row, _, weights, checkpoint = train_run(data, 0, options, n_labels, epochs=2, save_to=save_to)
+        assert row["status"] == BUDGET_USED and row["epochs_run"] == 2 and checkpoint is not None
+        assert weights is None and not (tmp_path / "run-0.npz").exists()
+        row, _, weights, _ = train_run(data, 0, options, n_labels, save_to=save_to, resume=checkpoint)
+        assert row["status"] == "finished" and row["epochs_run"] == 4
+        if save_to is not None:
+            with np.load(tmp_path / "run-0.npz") as saved:
+                weights = {k: saved[k] for k in saved.files}
+            (tmp_path / "run-0.npz").unlink()
+        _, _, straight, _ = train_run(data, 0, options, n_labels)
+        assert np.array_equal(weights["coef"], straight["coef"])
+        assert np.array_equal(weights["intercept"], straight["intercept"])
