@@ -129,23 +129,22 @@ class VocabularyCounter:
                 grown += values.astype(grown.dtype)
                 store[k] = grown
 
-    def fitted(self, folder: Path) -> Featurizer:
-        """The featurizer these counts give (as :meth:`Featurizer.fit` on the same texts), its vocabulary
-        written to ``folder/vocabulary.tsv`` and read back."""
+    def fitted(self) -> Featurizer:
+        """The featurizer these counts give (as :meth:`Featurizer.fit` on the same texts)."""
         cfg = self.config
-        names, dfs = [], []
+        picked, dfs = [], []
         for k, vocabulary in enumerate(self.vocabularies):
             grams = list(vocabulary)
             order = np.array(sorted(range(len(grams)), key=grams.__getitem__), dtype=np.int64)
             df, totals = self.df[k][order], self.totals[k][order]
             kept = kept_by_frequency(df, lambda: totals, self.n_documents, cfg)
-            picked = [grams[j] for j in order[kept].tolist()]
-            names += picked if k == 0 else [f"[{g}]" for g in picked]
+            picked.append([grams[j] for j in order[kept].tolist()])
             dfs.append(df[kept])
         feat = Featurizer(cfg)
-        feat.feature_names, feat.document_frequency, feat.n_documents = names, np.concatenate(dfs), self.n_documents
-        feat.save_vocabulary(folder / "vocabulary.tsv")
-        return Featurizer.load(feat.to_json(), folder / "vocabulary.tsv")
+        feat.feature_names = picked[0] + [f"[{g}]" for chars in picked[1:] for g in chars]
+        feat.document_frequency, feat.n_documents = np.concatenate(dfs), self.n_documents
+        feat._n_word = len(picked[0])  # word columns come first (Featurizer.load counts them off the names)
+        return feat
 
 
 def count_hashed_chunk(chunk: Chunk, config: FeaturizerConfig) -> tuple[sp.csr_matrix, Chunk]:
@@ -228,7 +227,7 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
                 if chunk.part == "data" and (~chunk.dev).any():
                     counter.add([t for t, held_out in zip(chunk.texts, chunk.dev) if not held_out])
                 meter.advance("counting", len(chunk.records))
-            feat = counter.fitted(tmp)
+            feat = counter.fitted()
         if fitted is None and config.hashing:
             _weigh_raw_shards(tmp, feat, writers, meter)
         else:

@@ -323,3 +323,15 @@ def test_dev_errors_of_a_store_run_once_and_equal_the_file(tmp_path, monkeypatch
     from_store, from_file = build_model(tmp_path / "s", options=options), build_model(path, options=options)
     assert calls == [1] and from_store.info["dev_errors"]["shown"]
     assert from_store.info["dev_errors"] == from_file.info["dev_errors"]
+
+
+def test_featurize_writes_the_vocabulary_once_and_reads_it_never(corpus_csv, tmp_path, monkeypatch):
+    # The fitted featurizer is kept in memory; its vocabulary file is written once, with store.json.
+    from lintext.text.featurizer import Featurizer
+
+    seen = []
+    save, load = Featurizer.save_vocabulary, Featurizer.load.__func__
+    monkeypatch.setattr(Featurizer, "save_vocabulary", lambda self, path: seen.append("save") or save(self, path))
+    monkeypatch.setattr(Featurizer, "load", classmethod(lambda cls, *a, **k: seen.append("load") or load(cls, *a, **k)))
+    featurize(corpus_csv, tmp_path / "s", featurizer=FeaturizerConfig(char_ngrams=(3, 4)))
+    assert seen == ["save"]
