@@ -26,10 +26,10 @@ Choices of lintext:
 
 from __future__ import annotations
 
-import math
 from typing import Callable, Iterable
 
-from .runs import BUDGET_USED, rank_key
+from ..report.sweep_page import ranked
+from .runs import BUDGET_USED
 
 
 def pruned(epoch: int) -> str:
@@ -82,9 +82,8 @@ def successive_halving(grid, run: Callable[[list], Iterable], stop_metric: str, 
         if level + 1 == len(bracket):
             break
         keep = bracket[level + 1][0]
-        ranked = sorted(alive, key=lambda i: rank_key(results[i][0], stop_metric))
-        going_on = [i for i in ranked[:keep] if results[i][0]["stop_value"] is not None
-                    and math.isfinite(results[i][0]["stop_value"])]
+        best_first = ranked([results[i][0] for i in alive], stop_metric)  # the table's order; diverged: no rank
+        going_on = [row["run"] for row in best_first[:keep] if row["rank"] is not None]
         for i in alive:
             if i not in going_on and results[i][0]["status"] == BUDGET_USED:
                 row, history, _ = results[i]

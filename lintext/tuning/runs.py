@@ -14,7 +14,6 @@ the same configuration gives the same row and weights in any process or on any m
 
 from __future__ import annotations
 
-import math
 import time
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -26,7 +25,7 @@ from ..engine.options import TrainOptions
 from ..engine.shards import RowShards
 from ..engine.trainer import fit
 from ..errors import DivergenceError, LinTextError
-from ..report.sweep_page import METRIC_KEYS
+from ..report.sweep_page import METRIC_KEYS, ranked
 
 SHARED = ("data", "indices", "indptr", "y", "dev_data", "dev_indices", "dev_indptr", "dev_y")
 
@@ -200,16 +199,10 @@ def run_row(index: int, options: TrainOptions, history: list[dict], best_epoch: 
     }
 
 
-def rank_key(row: dict, stop_metric: str):
-    """Sort key of a row: best stop value first (lowest dev loss, highest accuracy or macro-F1), then grid
-    order; runs without a value (diverged) last."""
-    value = row["stop_value"]
-    if value is None or not math.isfinite(value):
-        return (1, 0.0, row["run"])
-    return (0, value if stop_metric == "dev-loss" else -value, row["run"])
-
-
 def best_run(rows: list[dict], stop_metric: str) -> int | None:
-    """Index of the best row by ``stop_metric`` (first in grid order on ties); None when every run diverged."""
-    ranked = sorted(rows, key=lambda r: rank_key(r, stop_metric))
-    return ranked[0]["run"] if ranked and rank_key(ranked[0], stop_metric)[0] == 0 else None
+    """Index of the best row by ``stop_metric`` (first in grid order on ties); None when every run diverged.
+
+    The ranking is the table's (:func:`lintext.report.sweep_page.ranked`), so the best run is its rank 1.
+    """
+    top = ranked(rows, stop_metric)[:1]
+    return top[0]["run"] if top and top[0]["rank"] is not None else None

@@ -94,3 +94,46 @@ def test_a_run_at_its_budget_keeps_no_weights_and_goes_on_from_its_checkpoint(sm
         _, _, straight, _ = train_run(data, 0, options, n_labels)
         assert np.array_equal(weights["coef"], straight["coef"])
         assert np.array_equal(weights["intercept"], straight["intercept"])
+
+
+def test_the_bracket_prunes_promotes_and_keeps_final_runs_by_the_tables_ranking():
+    # Hand-worked, with a stand-in for training (each run's stop value per rung given below):
+    # 6 runs, 4 epochs, eta 2: s = min(2, 2) = 2, rungs (6 runs, 1 epoch), (3, 2), (1, 4).
+    # Rung 1 (macro-F1, higher is better): run 0 diverges, run 1 stops early at 0.9 (final), runs 2, 3
+    # and 4 tie at 0.5, run 5 has 0.2. Best 3: runs 1, 2, 3 (the tie goes to grid order): 4 and 5 are
+    # pruned at epoch 1. Rung 2 trains 2 and 3 (run 1 is final): 0.6 and 0.95; best 1 of runs 1, 2, 3
+    # is run 3, so run 2 is pruned at epoch 2 and run 1 keeps its status. Rung 3 trains run 3 to the end.
+    from lintext.tuning.halving import successive_halving
+    from lintext.tuning.runs import best_run
+
+    values = {1: {0: None, 1: 0.9, 2: 0.5, 3: 0.5, 4: 0.5, 5: 0.2}, 2: {2: 0.6, 3: 0.95}, 4: {3: 0.97}}
+    grid = [TrainOptions(optimizer="sgd", learning_rate=10.0 ** -k, epochs=4) for k in range(6)]
+
+    def run(tasks):
+        for i, options, epochs, _ in tasks:
+            value = values[epochs][i]
+            status = ("diverged at epoch 1" if value is None else "stopped early" if i == 1
+                      else "finished" if epochs == options.epochs else BUDGET_USED)
+            yield {"run": i, "status": status, "stop_value": value, "epochs_run": epochs}, [], None, None
+
+    events = []
+    results, rungs = successive_halving(grid, run, "macro-f1", 2, events.append)
+    assert rungs == [{"epochs": 1, "runs": [0, 1, 2, 3, 4, 5], "configurations": 6},
+                     {"epochs": 2, "runs": [2, 3], "configurations": 3},
+                     {"epochs": 4, "runs": [3], "configurations": 1}]
+    assert [results[i][0]["status"] for i in range(6)] == [
+        "diverged at epoch 1", "stopped early", "pruned at epoch 2", "finished", "pruned at epoch 1", "pruned at epoch 1"]
+    assert [(e["rung"], e["done"], e["total"]) for e in events] == [(1, k, 6) for k in range(1, 7)] + [(2, 1, 2), (2, 2, 2), (3, 1, 1)]
+    rows = [results[i][0] for i in range(6)]
+    assert best_run([r for r in rows if not r["status"].startswith("pruned")], "macro-f1") == 3
+
+
+def test_best_run_is_the_tables_rank_one():
+    # Hand-worked: lowest dev loss first, ties to the earlier run, runs without a finite value never best.
+    from lintext.report.sweep_page import ranked
+    from lintext.tuning.runs import best_run
+
+    rows = [{"run": i, "stop_value": v} for i, v in enumerate([None, float("nan"), float("inf"), 0.3, 0.2, 0.2])]
+    assert best_run(rows, "dev-loss") == 4 == ranked(rows, "dev-loss")[0]["run"]
+    assert best_run(rows, "accuracy") == 3 == ranked(rows, "accuracy")[0]["run"]
+    assert best_run(rows[:3], "dev-loss") is None and best_run([], "accuracy") is None
