@@ -4,8 +4,8 @@
 chunk of texts:
 
 1. *Labels*: one pass keeps each record's label id (8 bytes a record) and counts the records;
-   the stratified dev split is drawn from them exactly as :func:`lintext.text.readers.split_dev`
-   draws it (same seed, same rows).
+   the stratified dev split is drawn from them by :func:`lintext.text.split.dev_mask`, the draw
+   :func:`lintext.text.split.split_dev` makes in memory (same seed, same rows).
 2. *Counting* (fitting): in hashing mode each chunk's hashed counts (stateless, so chunks can be
    counted in other processes or on a cluster: ``map_chunks``) are written as raw shards while
    the training rows' document frequencies add up; in vocabulary mode the training rows'
@@ -39,6 +39,7 @@ from .config import FeaturizerConfig
 from .featurizer import Featurizer, df_mask, hashed_counts
 from ..files import atomic_directory
 from .readers import ReaderOptions, iter_records
+from .split import dev_mask
 from .store import SHARD_ROWS, ShardWriter, fingerprint, open_store, read_sources, shard_writer, write_store_json
 
 
@@ -79,23 +80,6 @@ def scan_labels(path, reader, require_labels: bool) -> tuple[np.ndarray, list[st
     names = sorted(codes)
     remap = np.array([names.index(n) for n in codes] + [-1], dtype=np.int64)
     return remap[np.frombuffer(ids, dtype=np.int64)], names
-
-
-def dev_rows(label_ids: np.ndarray, names: list[str], fraction: float, seed: int, path) -> np.ndarray:
-    """Boolean mask of the dev rows: :func:`lintext.text.readers.split_dev` on label ids (the same
-    generator calls on the same members, so the same rows; a test holds the two together)."""
-    if not 0.0 < fraction < 1.0:
-        raise ConfigError("--dev-fraction", fraction, "must be between 0 and 1 (exclusive)")
-    rng = np.random.default_rng(seed)
-    dev = np.zeros(len(label_ids), dtype=bool)
-    for k, name in enumerate(names):
-        members = np.flatnonzero(label_ids == k)
-        if len(members) < 2:
-            raise InputError(path, f"label {name!r} has only {len(members)} document(s); a stratified dev split needs "
-                                   "at least 2 per label (add documents or give --dev FILE)")
-        take = min(max(1, int(round(fraction * len(members)))), len(members) - 1)
-        dev[rng.permutation(members)[:take]] = True
-    return dev
 
 
 class VocabularyCounter:
@@ -191,7 +175,7 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
         dev_ids = np.array([names.index(n) for n in dev_names] + [-1], dtype=np.int64)[dev_ids]
         held = np.zeros(len(label_ids), dtype=bool)
     elif fitted is None and dev_fraction:
-        held = dev_rows(label_ids, names, float(dev_fraction), seed, data)
+        held = dev_mask(label_ids, names, float(dev_fraction), seed, data)
     else:
         held = np.zeros(len(label_ids), dtype=bool)
     total = len(label_ids) + (0 if dev_ids is None else len(dev_ids))

@@ -26,8 +26,8 @@ from lintext.from_store import featurize, rows_of
 from lintext.pipeline import build_model, evaluate, prediction_rows, prepare_data
 from lintext.text.config import FeaturizerConfig
 from lintext.text.readers import read_corpus
-from lintext.text.split import split_dev
-from lintext.text.streaming import dev_rows, scan_labels
+from lintext.text.split import dev_mask, split_dev
+from lintext.text.streaming import scan_labels
 from tests.conftest import DEMO, small_corpus_rows, write_csv
 
 CONFIGS = [
@@ -100,16 +100,23 @@ def test_store_matches_scikit_learn_vectorizers(corpus_csv, tmp_path):
 
 
 def test_streamed_split_is_the_in_memory_split():
-    # Reference: lintext.text.readers.split_dev on the same labels and seeds.
+    # Reference: the documented draw written out with NumPy's seeded generator (per label in sorted
+    # order, round(fraction * count) members, at least 1 and at most count - 1, from one permutation),
+    # and lintext.text.split.split_dev on the corpus read in memory: the same rows.
     path = DEMO / "train.csv"
     corpus = read_corpus(path)
     ids, names = scan_labels(path, None, True)
     assert names == corpus.label_names
     number = {source: k for k, source in enumerate(corpus.sources)}  # records span lines: number them
     for seed, fraction in ((0, 0.1), (7, 0.25)):
-        _, dev = split_dev(corpus, fraction, seed)
-        wanted = sorted(number[s] for s in dev.sources)
-        assert np.flatnonzero(dev_rows(ids, names, fraction, seed, path)).tolist() == wanted
+        rng, expected = np.random.default_rng(seed), []
+        for k in range(len(names)):
+            members = np.flatnonzero(ids == k)
+            expected += rng.permutation(members)[:min(max(1, int(round(fraction * len(members)))), len(members) - 1)].tolist()
+        train, dev = split_dev(corpus, fraction, seed)
+        assert sorted(number[s] for s in dev.sources) == sorted(expected)
+        assert [number[s] for s in train.sources] == sorted(set(range(len(corpus))) - set(expected))
+        assert np.flatnonzero(dev_mask(ids, names, fraction, seed, path)).tolist() == sorted(expected)
 
 
 def test_dev_file_rows_are_a_part_of_their_own(small_split, tmp_path):
