@@ -67,7 +67,7 @@ def successive_halving(grid, run: Callable[[list], Iterable], stop_metric: str, 
     checkpoints: dict[int, dict] = {}
     alive = list(range(len(grid)))
     rungs = []
-    for level, (keep_next, budget) in enumerate(bracket):
+    for level, (_, budget) in enumerate(bracket):
         train = [i for i in alive if i not in results or results[i][0]["status"] == BUDGET_USED]
         tasks = sorted(((i, grid[i], budget, checkpoints.pop(i, None)) for i in train), key=order_key or (lambda t: t[0]))
         rungs.append({"epochs": budget, "runs": [t[0] for t in tasks], "configurations": len(alive)})
@@ -90,7 +90,4 @@ def successive_halving(grid, run: Callable[[list], Iterable], stop_metric: str, 
                 results[i] = ({**row, "status": pruned(row["epochs_run"])}, history, None)
         alive = going_on
         checkpoints = {i: c for i, c in checkpoints.items() if i in alive}  # the pruned runs' are dropped
-    for i, (row, history, weights) in results.items():  # the last rung ran every survivor to the end
-        if row["status"] == BUDGET_USED:
-            results[i] = ({**row, "status": pruned(row["epochs_run"])}, history, None)
     return results, rungs

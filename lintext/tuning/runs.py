@@ -27,8 +27,6 @@ from ..engine.trainer import fit
 from ..errors import DivergenceError, LinTextError
 from ..report.sweep_page import METRIC_KEYS, ranked
 
-SHARED = ("data", "indices", "indptr", "y", "dev_data", "dev_indices", "dev_indptr", "dev_y")
-
 
 def share_arrays(folder: Path, X, y, X_dev, y_dev) -> dict:
     """Write the in-memory matrices' arrays for workers to open memory-mapped; returns the shapes."""
@@ -40,14 +38,6 @@ def share_arrays(folder: Path, X, y, X_dev, y_dev) -> dict:
     for name, array in arrays.items():
         np.save(folder / f"{name}.npy", np.ascontiguousarray(array), allow_pickle=False)
     return {"X": X.shape, "X_dev": X_dev.shape}
-
-
-def open_shared(folder: Path, shapes: dict):
-    """Open the shared arrays read-only and memory-mapped: ``(X, y, X_dev, y_dev)``, no copies."""
-    a = {name: np.load(folder / f"{name}.npy", mmap_mode="r", allow_pickle=False) for name in SHARED}
-    X = sp.csr_matrix((a["data"], a["indices"], a["indptr"]), shape=shapes["X"], copy=False)
-    X_dev = sp.csr_matrix((a["dev_data"], a["dev_indices"], a["dev_indptr"]), shape=shapes["X_dev"], copy=False)
-    return X, a["y"], X_dev, a["dev_y"]
 
 
 class ListLoader:

@@ -57,7 +57,7 @@ from ..text.config import FeaturizerConfig
 from ..text.readers import ReaderOptions
 from .cluster import ClusterRunner, cluster_client
 from .halving import successive_halving
-from .runs import RunData, best_run, open_shared, run_row, share_arrays, train_run  # noqa: F401  (re-exported)
+from .runs import RunData, best_run, share_arrays, train_run
 
 DEFAULT_OPTIMIZERS = ("sgd", "adagrad", "adam")
 DEFAULT_LEARNING_RATES = (1e-4, 1e-3, 1e-2, 1e-1, 1.0)
