@@ -64,9 +64,7 @@ class ShardLoader:
 
 def stacked(rows: RowShards):
     """The shards of a store's part stacked in memory in file order (rows are dealt to shards at random):
-    ``(X, y)`` as reading the source file gives them."""
-    if not isinstance(rows.load, ShardLoader):
-        return rows.concatenated()
+    ``(X, y)`` as reading the source file gives them (``rows.load``: a :class:`ShardLoader`)."""
     X, y = rows.concatenated()
     order = np.argsort(np.concatenate([rows.load.records(k) for k in range(len(rows.sizes))]), kind="stable")
     return X[order], y[order]
@@ -130,7 +128,7 @@ def store_data(path, dev=None, reader: ReaderOptions | None = None, featurizer: 
         "train": store.meta["sources"]["data"]["path"], "store": str(store.path),
         "train_documents": store.rows("data"),
         "dev": None if X_dev is None else dev_name,
-        "dev_documents": 0 if X_dev is None else (len(dev_set) if dev_set is not None else X_dev.shape[0]),
+        "dev_documents": 0 if dev_set is None else len(dev_set),
         "features": int(store.n_features), "nonzeros": int(store.meta["parts"]["data"]["nonzeros"]),
         "featurize_seconds": 0.0, "shards": len(store.shards("data")),
     }
@@ -197,16 +195,6 @@ def opened(data, model=None) -> tuple[FeatureStore, list[str]]:
         store.check_featurizer(model.featurizer, "the model")
     split_from_data = store.meta.get("split", {}).get("dev") != "file"
     return store, [p for p in PARTS if store.has(p) and (p == "data" or split_from_data)]
-
-
-def scored_shards(model, data, need_labels: bool):
-    """``(records, scores, true label indices or None)`` of every shard to score, part after part."""
-    store, parts = opened(data, model)
-    for part in parts:
-        for k in range(len(store.shards(part))):
-            shard = store.load_shard(part, k)
-            truth = store.label_ids(shard.labels, model.labels, part, k) if need_labels else None
-            yield np.asarray(shard.records), model.matrix_scores(shard.X), truth
 
 
 def store_evaluation(model, data, unknown_labels: str = "count"):

@@ -112,8 +112,6 @@ def source_change(recorded: dict) -> str | None:
 # ------------------------------------------------------------------ writing
 
 
-
-
 class ShardWriter:
     """Collects the rows of one part and writes them as shards of ``shard_rows`` rows into ``folder``."""
 
@@ -288,12 +286,12 @@ class FeatureStore:
     def rows(self, part: str) -> int:
         return int(self.meta["parts"].get(part, {}).get("rows", 0))
 
-    def load_shard(self, part: str, index: int, mmap: bool = True) -> Shard:
-        """Shard ``index`` of ``part``; memory-mapped read-only arrays unless ``mmap`` is False."""
+    def load_shard(self, part: str, index: int) -> Shard:
+        """Shard ``index`` of ``part``, its arrays memory-mapped read-only."""
         info = self.shards(part)[index]
         folder = self.path / info["name"]
         try:
-            a = {k: np.load(folder / f"{k}.npy", mmap_mode="r" if mmap else None, allow_pickle=False) for k in ARRAYS}
+            a = {k: np.load(folder / f"{k}.npy", mmap_mode="r", allow_pickle=False) for k in ARRAYS}
         except (OSError, ValueError) as exc:
             raise InputError(folder, f"cannot read the store's shard ({exc})") from None
         rows = info["rows"]
@@ -346,9 +344,6 @@ class FeatureStore:
             raise InputError(self.path, f"featurized differently from {model}: {problem}; featurize the data again "
                                         f"with --featurizer-from {model}")
         return self
-
-    def description(self, part: str = "data") -> str:
-        return f"{self.path} ({self.meta['sources'].get(part, self.meta['sources'].get('data', {})).get('path', '')})"
 
 
 def featurizer_difference(mine: Featurizer, theirs: Featurizer) -> str | None:
