@@ -144,8 +144,8 @@ def _unique_inverse(values, inverse=True):
     return ordered[first], where
 
 
-def _csr(rows, cols, shape) -> sp.csr_matrix:
-    """Counts of (row, column) pairs as CSR with sorted column indices."""
+def pair_counts(rows, cols, shape) -> sp.csr_matrix:
+    """Counts of (row, column) pairs as CSR (int32 counts) with sorted column indices, no duplicates."""
     import scipy.sparse as sp
 
     X = sp.csr_matrix((np.ones(rows.size, dtype=np.int32), (rows, cols)), shape=shape)
@@ -163,7 +163,7 @@ def count_word_chunk(texts, lowercase, ngram_range):
         return None
     keys, rows = ngram_keys(rank[ids], lengths, ngram_range, base)
     feature_keys, cols = _unique_inverse(keys)
-    return tokens, feature_keys, _csr(rows, cols, (lengths.size, feature_keys.size))
+    return tokens, feature_keys, pair_counts(rows, cols, (lengths.size, feature_keys.size))
 
 
 def count_string_chunk(texts, analyzer, ngram_range, lowercase):
@@ -176,7 +176,7 @@ def count_string_chunk(texts, analyzer, ngram_range, lowercase):
     names, rank = _sorted_vocabulary(vocabulary)
     rows = np.repeat(np.arange(lengths.size, dtype=np.int64), lengths)
     # one newline-joined string pickles far faster than a list (features hold no newline)
-    return "\n".join(names), _csr(rows, rank[ids], (lengths.size, len(names)))
+    return "\n".join(names), pair_counts(rows, rank[ids], (lengths.size, len(names)))
 
 
 def _merge_sorted_names(lists) -> tuple[list[str], list[np.ndarray]]:
@@ -342,7 +342,7 @@ def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, colu
     at[at == keys.size] = 0
     hit = keys[at] == found
     cols = at[hit] if columns is None else columns[at[hit]]
-    return _csr(rows[hit], cols, (lengths.size, n_cols))
+    return pair_counts(rows[hit], cols, (lengths.size, n_cols))
 
 
 def transform_string_chunk(texts, analyzer, ngram_range, lowercase, names):

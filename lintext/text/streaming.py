@@ -34,7 +34,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import ConfigError, InputError
-from .chunked_counts import analyzed_ids, growing_vocabulary, kept_by_frequency
+from .chunked_counts import analyzed_ids, growing_vocabulary, kept_by_frequency, pair_counts
 from .config import FeaturizerConfig
 from .featurizer import Featurizer, df_mask, hashed_counts
 from ..files import atomic_directory
@@ -102,10 +102,8 @@ class VocabularyCounter:
         for k, analyze in enumerate(self.analyzers):
             vocabulary = self.vocabularies[k]
             ids, lengths = analyzed_ids(texts, analyze, vocabulary.__getitem__)
-            rows = np.repeat(np.arange(lengths.size), lengths)
-            C = sp.csr_matrix((np.ones(ids.size), (rows, ids)), shape=(lengths.size, len(vocabulary)))
-            C.sum_duplicates()
             width = len(vocabulary)
+            C = pair_counts(np.repeat(np.arange(lengths.size), lengths), ids, (lengths.size, width))
             for store, values in ((self.df, np.bincount(C.indices, minlength=width)),
                                   (self.totals, np.bincount(C.indices, weights=C.data, minlength=width))):
                 grown = np.zeros(width, dtype=store[k].dtype)

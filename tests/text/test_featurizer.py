@@ -326,3 +326,12 @@ def test_parallel_errors_match_one_pass():
         with pytest.raises(ConfigError, match="n_jobs"):
             Featurizer(FeaturizerConfig(), n_jobs=bad)
     assert Featurizer(FeaturizerConfig(), n_jobs=0)._jobs_for(10**6) >= 1
+
+
+def test_pair_counts_are_scipys_summed_duplicates():
+    # Reference: SciPy's COO -> CSR conversion, which sums duplicate (row, column) entries.
+    rng = np.random.default_rng(0)
+    rows, cols = rng.integers(0, 6, 200), rng.integers(0, 9, 200)
+    X = chunked_counts.pair_counts(rows, cols, (6, 9))
+    ref = sp.coo_matrix((np.ones(200), (rows, cols)), shape=(6, 9)).tocsr()
+    assert X.has_sorted_indices and X.nnz == ref.nnz and np.array_equal(X.toarray(), ref.toarray())
