@@ -33,7 +33,7 @@ def rare_columns(model, top_rare: int = 30, rare_df: int = RARE_DF) -> tuple[np.
 
 
 def training_extras(model, train_texts, train_sources, X_train, train_labels=None, top_rare: int = 30,
-                    rare_df: int = RARE_DF, ngrams_per_column: int = 3, hashed_texts=None) -> dict:
+                    rare_df: int = RARE_DF, ngrams_per_column: int = 3, hashed_texts=None, rare=None) -> dict:
     """What only the training data can tell the report, as JSON-ready data.
 
     Meant to be stored as ``model.info["explain"]`` right after training.
@@ -50,6 +50,8 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
     ngrams_per_column : hashing mode: how many n-grams to name per column.
     hashed_texts : hashing mode: the texts whose n-grams name the columns (default ``train_texts``;
         a feature store passes a bounded sample, its first shard).
+    rare : :func:`rare_columns` of the model with these ``top_rare`` and ``rare_df``, when the caller
+        has computed it already (a feature store does, to know which rows to read back).
 
     Returns
     -------
@@ -71,7 +73,7 @@ def training_extras(model, train_texts, train_sources, X_train, train_labels=Non
         names_by_column = {c: [g[0] for g in grams] for c, grams in zip(section["columns"], section["ngrams"])}
 
     df = np.asarray(feat.document_frequency, dtype=np.int64)
-    chosen, norm_of = rare_columns(model, top_rare, rare_df)
+    chosen, norm_of = rare if rare is not None else rare_columns(model, top_rare, rare_df)
     X = X_train.tocsc()
     rare = []
     for j in chosen.tolist():

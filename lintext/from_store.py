@@ -141,7 +141,8 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
     documents behind the rare features are read back from the source by record number (the store's
     fingerprint says it is unchanged); in hashing mode the n-grams naming the columns come from the
     documents of the first shard (all of them when the part is one shard; a random sample else)."""
-    chosen, _ = rare_columns(model, top_rare)
+    rare = rare_columns(model, top_rare)
+    chosen = rare[0]
     wanted = np.zeros(store.n_features, dtype=bool)
     wanted[chosen] = True
     hashing = model.featurizer.config.hashing
@@ -167,7 +168,7 @@ def store_evidence(model, store: FeatureStore, top_rare: int = 30) -> dict:
     sources = [sources[i] for i in by_record.tolist()]
     hashed = [texts[r] for r in sorted(sample)] if hashing else None
     return training_extras(model, [texts[r] for r in order], sources, X, train_labels=labels, top_rare=top_rare,
-                           hashed_texts=hashed)
+                           hashed_texts=hashed, rare=rare)
 
 
 def texts_by_record(store: FeatureStore, records: set, source: str = "data") -> dict:

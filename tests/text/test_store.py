@@ -342,3 +342,18 @@ def test_featurize_writes_the_vocabulary_once_and_reads_it_never(corpus_csv, tmp
     monkeypatch.setattr(Featurizer, "load", classmethod(lambda cls, *a, **k: seen.append("load") or load(cls, *a, **k)))
     featurize(corpus_csv, tmp_path / "s", featurizer=FeaturizerConfig(char_ngrams=(3, 4)))
     assert seen == ["save"]
+
+
+def test_evidence_from_a_store_ranks_the_rare_columns_once(corpus_csv, tmp_path, monkeypatch):
+    # The ranking that picks the rows to read back is the one the evidence shows (equal to the file's
+    # evidence: test_training_from_a_one_shard_store_equals_training_from_the_file).
+    import lintext.evidence
+    import lintext.from_store
+
+    calls = []
+    real = lintext.evidence.rare_columns
+    counted = lambda *a, **k: calls.append(1) or real(*a, **k)  # noqa: E731
+    monkeypatch.setattr(lintext.evidence, "rare_columns", counted)
+    monkeypatch.setattr(lintext.from_store, "rare_columns", counted)
+    featurize(corpus_csv, tmp_path / "s")
+    assert build_model(tmp_path / "s", options={"epochs": 1}).info["explain"]["rare_features"] and calls == [1]
