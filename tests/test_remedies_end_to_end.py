@@ -125,3 +125,31 @@ def test_log_tfidf_is_scikit_learns_sublinear_tfidf():
     ours = Featurizer(FeaturizerConfig(ngrams=(1, 1), min_df=1, weighting="log-tfidf")).fit_transform(texts)
     theirs = TfidfVectorizer(sublinear_tf=True).fit_transform(texts)
     np.testing.assert_allclose(ours.toarray(), theirs.toarray(), rtol=1e-12, atol=1e-15)
+
+
+def test_each_remedy_has_its_sentence_and_its_few_words_in_order():
+    # Hand-written: the report's sentence and the comparison's few words of each remedy, in one order.
+    from lintext.report.remedies import remedies
+
+    def remedies_on(info):
+        return [sentence for sentence, _ in remedies(info)]
+
+    def remedies_short(info):
+        return [words for _, words in remedies(info)]
+
+    info = {"training": {"optimizer": "adagrad", "l1": 0.001, "l2": 0.01, "average": 2, "initial_sum_sq": 0.1,
+                         "label_weights": "balanced"}, "data": {"weight_column": "w"}}
+    assert remedies_on(info) == [
+        "elastic net: cumulative L1 penalty 0.001 (Tsuruoka, Tsujii & Ananiadou 2009), L2 0.01",
+        "iterate averaging from epoch 2: the model is the mean of the weights after every step since (Polyak & Juditsky 1992)",
+        "AdaGrad's sum of squared gradients started at 0.1, so a rare feature's first step scales with its gradient",
+        "label weights balanced (losses are weighted)",
+        "document weights from the column w (losses are weighted)"]
+    assert remedies_short(info) == ["L1 0.001", "averaged from epoch 2", "AdaGrad start 0.1", "label weights balanced",
+                                    "document weights"]
+    ftrl = {"training": {"optimizer": "ftrl", "l1": 0.5, "l2": 0.0, "beta": None, "initial_sum_sq": 0.1}}
+    assert remedies_on(ftrl) == ["FTRL-Proximal (McMahan et al. 2013) with lambda_1 0.5, lambda_2 0, beta 1"]
+    assert remedies_short(ftrl) == ["FTRL λ1 0.5"]
+    assert remedies_on({"training": {"optimizer": "sgd", "l1": 0.001}}) == [
+        "cumulative L1 penalty 0.001 (Tsuruoka, Tsujii & Ananiadou 2009)"]
+    assert remedies_on({}) == remedies_short({}) == []

@@ -19,53 +19,38 @@ from .layout import fmt, pct, table
 from .stats import key_numbers
 
 
-def remedies_on(info: dict) -> list[str]:
-    """One plain sentence per remedy that was on in training (from ``model.json``'s options)."""
+def remedies(info: dict) -> list[tuple[str, str]]:
+    """Per remedy that was on in training (from ``model.json``'s options): a plain sentence (the
+    report) and a few words (the comparison's narrow columns)."""
     training = info.get("training") or {}
-    data = info.get("data") or {}
+    l1, l2 = training.get("l1"), training.get("l2")
     out = []
     if training.get("optimizer") == "ftrl":
-        out.append(f"FTRL-Proximal (McMahan et al. 2013) with lambda_1 {fmt(training.get('l1', 0.0))}, "
-                   f"lambda_2 {fmt(training.get('l2', 0.0))}, beta {fmt(training.get('beta') or 1.0)}")
-    elif training.get("l1"):
-        kind = "elastic net: cumulative L1 penalty" if training.get("l2") else "cumulative L1 penalty"
-        out.append(f"{kind} {fmt(training['l1'])} (Tsuruoka, Tsujii & Ananiadou 2009)"
-                   + (f", L2 {fmt(training['l2'])}" if training.get("l2") else ""))
+        out.append((f"FTRL-Proximal (McMahan et al. 2013) with lambda_1 {fmt(training.get('l1', 0.0))}, "
+                    f"lambda_2 {fmt(training.get('l2', 0.0))}, beta {fmt(training.get('beta') or 1.0)}",
+                    f"FTRL λ1 {fmt(training.get('l1', 0.0))}"))
+    elif l1:
+        kind = "elastic net: cumulative L1 penalty" if l2 else "cumulative L1 penalty"
+        out.append((f"{kind} {fmt(l1)} (Tsuruoka, Tsujii & Ananiadou 2009)" + (f", L2 {fmt(l2)}" if l2 else ""),
+                    f"L1 {fmt(l1)}"))
     if training.get("average"):
-        out.append(f"iterate averaging from epoch {training['average']}: the model is the mean of the weights "
-                   "after every step since (Polyak & Juditsky 1992)")
+        out.append((f"iterate averaging from epoch {training['average']}: the model is the mean of the weights "
+                    "after every step since (Polyak & Juditsky 1992)", f"averaged from epoch {training['average']}"))
     if training.get("optimizer") == "adagrad" and training.get("initial_sum_sq"):
-        out.append(f"AdaGrad's sum of squared gradients started at {fmt(training['initial_sum_sq'])}, so a rare "
-                   "feature's first step scales with its gradient")
+        out.append((f"AdaGrad's sum of squared gradients started at {fmt(training['initial_sum_sq'])}, so a rare "
+                    "feature's first step scales with its gradient", f"AdaGrad start {fmt(training['initial_sum_sq'])}"))
     if training.get("label_weights"):
-        out.append(f"label weights {escape(str(training['label_weights']))} (losses are weighted)")
-    if data.get("weight_column"):
-        out.append(f"document weights from the column {escape(str(data['weight_column']))} (losses are weighted)")
-    return out
-
-
-def remedies_short(info: dict) -> list[str]:
-    """The remedies that were on, a few words each (for the comparison's narrow columns)."""
-    training = info.get("training") or {}
-    out = []
-    if training.get("optimizer") == "ftrl":
-        out.append(f"FTRL λ1 {fmt(training.get('l1', 0.0))}")
-    elif training.get("l1"):
-        out.append(f"L1 {fmt(training['l1'])}")
-    if training.get("average"):
-        out.append(f"averaged from epoch {training['average']}")
-    if training.get("optimizer") == "adagrad" and training.get("initial_sum_sq"):
-        out.append(f"AdaGrad start {fmt(training['initial_sum_sq'])}")
-    if training.get("label_weights"):
-        out.append(f"label weights {escape(str(training['label_weights']))}")
-    if (info.get("data") or {}).get("weight_column"):
-        out.append("document weights")
+        weights = escape(str(training["label_weights"]))
+        out.append((f"label weights {weights} (losses are weighted)", f"label weights {weights}"))
+    column = (info.get("data") or {}).get("weight_column")
+    if column:
+        out.append((f"document weights from the column {escape(str(column))} (losses are weighted)", "document weights"))
     return out
 
 
 def remedies_block(info: dict) -> str:
     """The report's paragraph on the remedies that were on (or that none was)."""
-    items = remedies_on(info)
+    items = [sentence for sentence, _ in remedies(info)]
     if not items:
         return '<p class="muted">Remedies for rare features: none (no averaging, no L1 penalty, no weights).</p>'
     return "<h3>Remedies for rare features</h3><ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
@@ -87,7 +72,7 @@ def comparison_block(entries: list) -> str:
     """Side by side, one column per model: remedies, the share of total |Δw| taken by features in
     at most two documents, exactly-zero features (in all and per bin) and dev scores."""
     names = [escape(name) for name, _, _ in entries]
-    rows = [["remedies"] + ["; ".join(remedies_short(m.info or {})) or "none" for _, m, _ in entries]]
+    rows = [["remedies"] + ["; ".join(words for _, words in remedies(m.info or {})) or "none" for _, m, _ in entries]]
     numbers = [key_numbers(tab) for _, _, tab in entries]
     rows.append([f"share of |Δw| in features of ≤ {numbers[0]['rare_df'] if numbers else 2} documents"]
                 + [pct(k["rare_update_share"]) if math.isfinite(k["rare_update_share"]) else "–" for k in numbers])
