@@ -52,10 +52,9 @@ class Display:
         elif stage == "run":
             row = event["row"]
             rung = f"rung {event['rung']}/{event['rungs']} ({event['epochs']} epochs) " if "rung" in event else ""
-            self._bar("run", event["total"], event["done"], f"{rung}{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
-        elif stage == "cluster":
-            self._bar("run", event["total"], event["finished"], f"{event['running']} running, {event['queued']} queued; "
-                      f"last: {event['row']['optimizer']} {event['row']['learning_rate']:g}: {event['row']['status']}")
+            queue = f"{event['running']} running, {event['queued']} queued; last: " if "running" in event else ""
+            self._bar("run", event["total"], event["done"],
+                      f"{rung}{queue}{row['optimizer']} {row['learning_rate']:g}: {row['status']}")
         elif stage == "featurize":
             self._bar(f"{event['step']}: document", event["total"], event["documents"],
                       f"{event['per_second']:,.0f} documents/s")

@@ -90,8 +90,8 @@ def cluster_task(topic: str, run_data: RunData, index: int, options, n_labels: i
 class ClusterRunner:
     """``runner(tasks)`` for :func:`lintext.tuning.sweep.sweep` on a Dask cluster (see the module docstring)."""
 
-    def __init__(self, client, run_data: RunData, n_labels: int, report):
-        self.client, self.run_data, self.n_labels, self.report = client, run_data, n_labels, report
+    def __init__(self, client, run_data: RunData, n_labels: int):
+        self.client, self.run_data, self.n_labels = client, run_data, n_labels
         self.topic = f"lintext-runs-{uuid.uuid4().hex}"
         self.workers = len(client.scheduler_info()["workers"])
         self.address = client.scheduler.address
@@ -101,6 +101,7 @@ class ClusterRunner:
         self.arrays = None if self.shared else client.scatter([run_data.in_memory()], broadcast=True)[0]
         self.started = Counter()
         self.last_task: dict[int, tuple] = {}
+        self.queue = {"running": 0, "queued": 0}  # the tasks' state when the last result came back
         client.subscribe_topic(self.topic, self._started)
 
     def _started(self, event) -> None:
@@ -123,9 +124,12 @@ class ClusterRunner:
             future.release()
             finished.add(keys[futures.index(future)])
             running = sum(1 for k in keys if k not in finished and self.started[k] > 0)
+            self.queue = {"running": running, "queued": len(keys) - len(finished) - running}
             yield row, history, weights, checkpoint
-            self.report({"stage": "cluster", "finished": len(finished), "running": running,
-                         "queued": len(keys) - len(finished) - running, "total": len(keys), "row": row})
+
+    def annotate(self, event: dict) -> dict:
+        """A ``run`` event with the tasks ``running`` and ``queued`` when its run came back."""
+        return {**event, **self.queue}
 
     def count_attempts(self, results: dict) -> None:
         """Set each row's ``attempts``: how many times its last task started (from the logged events)."""

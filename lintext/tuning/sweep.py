@@ -221,10 +221,12 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
                                shards, dev_shards, labels=list(prepared.labels),
                                weights={"sample_weight": prepared.weights, "dev_weight": prepared.dev_weights})
             if client is not None:
-                runner = ClusterRunner(client, run_data, n_labels, report)
+                runner = ClusterRunner(client, run_data, n_labels)
                 jobs = runner.workers
+                report_run = lambda event: report(runner.annotate(event))  # noqa: E731  (+ running, queued)
             else:
                 runner = local_runner(run_data, n_labels, jobs, folder)
+                report_run = report
             # Smallest learning rates first: they tend to run every epoch, so the long runs start
             # early and the short ones fill the gaps at the end (longest-first scheduling).
             first = lambda task: (task[1].learning_rate, task[0])  # noqa: E731
@@ -233,10 +235,10 @@ def sweep(data, dev=None, dev_fraction: float = 0.1, featurizer: FeaturizerConfi
                 results = {}
                 for row, history, weights, _ in runner(tasks):
                     results[row["run"]] = (row, history, weights)
-                    report({"stage": "run", "done": len(results), "total": len(grid), "row": row})
+                    report_run({"stage": "run", "done": len(results), "total": len(grid), "row": row})
                 rungs = None
             else:
-                results, rungs = successive_halving(grid, runner, base.stop_metric, halving, report, order_key=first)
+                results, rungs = successive_halving(grid, runner, base.stop_metric, halving, report_run, order_key=first)
             if client is not None:
                 runner.count_attempts(results)
                 runner.close()

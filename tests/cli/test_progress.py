@@ -39,3 +39,20 @@ def test_train_announces_every_phase_and_the_display_draws_them(tmp_path, monkey
     assert seen == [f"Reading {train}", f"Featurizing {events[1]['documents']} documents", 0, 1, 2, 3,
                     "Evaluating on the dev set", f"Evaluating on {test}"]
     assert "epoch 3/3" in screen.getvalue()
+
+
+def test_a_run_on_the_cluster_is_one_event_drawn_with_its_rung_and_the_queue(monkeypatch):
+    # A halving sweep on a cluster: each run's event carries its rung and the tasks running and queued
+    # (lintext.tuning.sweep's docstring); the bar shows both, once per run. Hand-written events.
+    screen = io.StringIO()
+    monkeypatch.setattr(display, "err", Console(file=screen, force_terminal=True, width=160))
+    shown = display.Display(True)
+    row = {"optimizer": "adam", "learning_rate": 0.01, "status": "finished at budget"}
+    shown({"stage": "run", "done": 2, "total": 6, "row": row, "rung": 1, "rungs": 3, "epochs": 1, "running": 2,
+           "queued": 2})
+    task = shown.progress.tasks[0]
+    assert (task.completed, task.total) == (2, 6)
+    assert task.fields["info"] == "rung 1/3 (1 epochs) 2 running, 2 queued; last: adam 0.01: finished at budget"
+    shown({"stage": "run", "done": 3, "total": 6, "row": row})  # a local sweep: no queue to show
+    assert shown.progress.tasks[0].fields["info"] == "adam 0.01: finished at budget"
+    shown.close()

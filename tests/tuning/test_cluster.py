@@ -59,8 +59,17 @@ def test_cluster_sweep_with_halving_over_a_sharded_store(cluster, small_split, t
     featurize(small_split["train"], tmp_path / "s", dev=small_split["dev"], shard_rows=40)  # 3 shards, read one by one
     kwargs = dict(optimizers="sgd,adam", learning_rates=[0.01, 0.3, 3.0], options={"epochs": 4, "patience": 2}, halving=2)
     here = sweep(tmp_path / "s", workers=2, **kwargs)
-    there = sweep(tmp_path / "s", cluster=client, **kwargs)
+    events = []
+    there = sweep(tmp_path / "s", cluster=client, progress=events.append, **kwargs)
     assert comparable(here) == comparable(there)
+    # One event per run trained in each rung (the bracket as run), the run's own, with the tasks still
+    # running or queued; no second event for the same run.
+    runs = [e for e in events if "row" in e]
+    rungs = there.settings["halving"]["rungs"]
+    assert [e["stage"] for e in runs] == ["run"] * sum(len(r["runs"]) for r in rungs)
+    assert [(e["rung"], e["done"], e["total"]) for e in runs] == \
+        [(k + 1, done, len(r["runs"])) for k, r in enumerate(rungs) for done in range(1, len(r["runs"]) + 1)]
+    assert all(e["running"] + e["queued"] == e["total"] - e["done"] and min(e["running"], e["queued"]) >= 0 for e in runs)
     assert any(r["status"].startswith("pruned at epoch") for r in there.rows)
     assert np.array_equal(here.model.coef, there.model.coef)
 
