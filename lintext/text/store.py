@@ -113,7 +113,8 @@ def source_change(recorded: dict) -> str | None:
 
 
 class ShardWriter:
-    """Collects the rows of one part and writes them as shards of ``shard_rows`` rows into ``folder``."""
+    """Collects the rows of one part and writes them as shards of ``shard_rows`` rows into ``folder``.
+    The rows of a part of at most ``shard_rows`` rows are all kept until :meth:`close`."""
 
     def __init__(self, folder: Path, part: str, shard_rows: int):
         self.folder, self.part, self.shard_rows = Path(folder), part, int(shard_rows)
@@ -122,25 +123,26 @@ class ShardWriter:
         self.shards: list[dict] = []
 
     def add(self, X: sp.csr_matrix, labels, records, sources) -> None:
-        """Queue rows (written once ``shard_rows`` rows are waiting)."""
+        """Queue rows (a shard is written once more than ``shard_rows`` rows are waiting)."""
         if X.shape[0] == 0:
             return
         self.pending.append((X.tocsr(), np.asarray(labels, np.int64), np.asarray(records, np.int64), list(sources)))
         self.pending_rows += X.shape[0]
-        while self.pending_rows >= self.shard_rows:
+        while self.pending_rows > self.shard_rows:
             self._write(self.shard_rows)
 
-    def close(self) -> list[dict]:
-        """Write what is left; the shards' names, rows and non-zeros."""
-        self.flush()
+    def close(self, transform=None) -> list[dict]:
+        """Write what is left; the shards' names, rows and non-zeros. ``transform(X)``: what to write in place
+        of the matrix of the rows left (hashing mode weighs raw counts so, once every row is counted)."""
+        self.flush(transform)
         return self.shards
 
-    def flush(self) -> None:
-        """Write the rows waiting as one shard (however many they are)."""
+    def flush(self, transform=None) -> None:
+        """Write the rows waiting as one shard (however many they are); ``transform``: see :meth:`close`."""
         if self.pending_rows:
-            self._write(self.pending_rows)
+            self._write(self.pending_rows, transform)
 
-    def _write(self, rows: int) -> None:
+    def _write(self, rows: int, transform=None) -> None:
         X = sp.vstack([p[0] for p in self.pending], format="csr") if len(self.pending) > 1 else self.pending[0][0]
         labels, records = (np.concatenate([p[k] for p in self.pending]) for k in (1, 2))
         sources = [s for p in self.pending for s in p[3]]
@@ -152,6 +154,9 @@ class ShardWriter:
         folder.mkdir()
         X = X[:rows]
         X.sort_indices()
+        if transform is not None:
+            X = transform(X)
+            X.sort_indices()
         arrays = {"data": X.data, "indices": X.indices, "indptr": X.indptr, "labels": labels[:rows],
                   "records": records[:rows]}
         for key, array in arrays.items():
@@ -192,8 +197,9 @@ class DealingWriter:
             with open(self.spool / f"{k}.sources", "a", encoding="utf-8", newline="\n", errors="surrogateescape") as fh:
                 fh.writelines(escape(sources[i]) + "\n" for i in rows.tolist())
 
-    def close(self) -> list[dict]:
-        """Write every shard from its spool files (one in memory at a time); the shards' names, rows and non-zeros."""
+    def close(self, transform=None) -> list[dict]:
+        """Write every shard from its spool files (one in memory at a time); the shards' names, rows and non-zeros.
+        ``transform``: see :meth:`ShardWriter.close`, applied to each shard."""
         writer = ShardWriter(self.folder, self.part, 1 << 62)
         for k in range(int(self.deal.max()) + 1 if self.deal.size else 0):
             a = {key: np.fromfile(self.spool / f"{k}.{key}", dtype=np.float64 if key == "data" else np.int64)
@@ -203,7 +209,7 @@ class DealingWriter:
             X = sp.csr_matrix((a["data"], a["indices"].astype(index_dtype), indptr),
                               shape=(len(a["lengths"]), self.n_features), copy=False)
             writer.add(X, a["labels"], a["records"], read_sources(self.spool / f"{k}.sources"))
-            writer.flush()
+            writer.flush(transform)
             for f in self.spool.glob(f"{k}.*"):
                 f.unlink()
         self.spool.rmdir()

@@ -7,13 +7,14 @@ chunk of texts:
    the stratified dev split is drawn from them by :func:`lintext.text.split.dev_mask`, the draw
    :func:`lintext.text.split.split_dev` makes in memory (same seed, same rows).
 2. *Counting* (fitting): in hashing mode each chunk's hashed counts (stateless, so chunks can be
-   counted in other processes or on a cluster: ``map_chunks``) are written as raw shards while
-   the training rows' document frequencies add up; in vocabulary mode the training rows'
-   n-grams are counted into one growing vocabulary (document frequency and total count per
-   n-gram: memory bounded by the vocabulary, not the corpus) and the limits (``min_df``,
-   ``max_df``, ``max_features``) are applied at the end as scikit-learn applies them.
+   counted in other processes or on a cluster: ``map_chunks``) go to the shard writers (spooled,
+   or kept in memory for a part of one shard) while the training rows' document frequencies add
+   up; in vocabulary mode the training rows' n-grams are counted into one growing vocabulary
+   (document frequency and total count per n-gram: memory bounded by the vocabulary, not the
+   corpus) and the limits (``min_df``, ``max_df``, ``max_features``) are applied at the end as
+   scikit-learn applies them.
 3. *Writing*: in vocabulary mode each chunk is transformed by the fitted featurizer and written;
-   in hashing mode each raw shard is weighted.
+   in hashing mode each shard's raw counts are weighted as the shard is written.
 
 The matrix equals what :class:`~lintext.text.featurizer.Featurizer` gives in memory on the same
 training rows, bit for bit: counting is exact, and weighting and normalising act on each row
@@ -23,7 +24,6 @@ fitted and there is no dev split.
 
 from __future__ import annotations
 
-import shutil
 import time
 from array import array
 from dataclasses import dataclass
@@ -40,7 +40,7 @@ from .featurizer import Featurizer, df_mask, hashed_counts
 from ..files import atomic_directory
 from .readers import ReaderOptions, iter_records
 from .split import dev_mask
-from .store import SHARD_ROWS, ShardWriter, fingerprint, open_store, read_sources, shard_writer, write_store_json
+from .store import SHARD_ROWS, fingerprint, open_store, shard_writer, write_store_json
 
 
 @dataclass
@@ -194,15 +194,13 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
     n_dev = int(held.sum()) + (0 if dev_ids is None else len(dev_ids))
 
     def fill(tmp: Path):
-        hashed = fitted is None and config.hashing  # raw shards dealt in _fit_hashed, then weighted one to one
-        writers = {part: ShardWriter(tmp, part, shard_rows) if hashed else shard_writer(tmp, part, rows, shard_rows, seed)
-                   for part, rows in (("data", n_data), ("dev", n_dev))}
+        writers = {part: shard_writer(tmp, part, rows, shard_rows, seed) for part, rows in (("data", n_data), ("dev", n_dev))}
+        weigh = None
         if fitted is not None:
             feat = fitted
-        elif config.hashing:
-            (tmp / "raw").mkdir()
-            raw = {part: shard_writer(tmp / "raw", part, rows, shard_rows, seed) for part, rows in (("data", n_data), ("dev", n_dev))}
-            feat = _fit_hashed(tmp, chunks(), config, raw, map_chunks, meter)
+        elif config.hashing:  # raw counts written as they come, weighted as each shard is written at close
+            feat = _fit_hashed(chunks(), config, writers, map_chunks, meter)
+            weigh = _Weigh(feat, meter)
         else:
             counter = VocabularyCounter(config)
             for chunk in chunks():
@@ -210,14 +208,12 @@ def featurize_store(data, out, dev=None, dev_fraction: float = 0.1, seed: int = 
                     counter.add([t for t, held_out in zip(chunk.texts, chunk.dev) if not held_out])
                 meter.advance("counting", len(chunk.records))
             feat = counter.fitted()
-        if fitted is None and config.hashing:
-            _weigh_raw_shards(tmp, feat, writers, meter)
-        else:
+        if weigh is None:
             feat.n_jobs = n_jobs
             for chunk in chunks():
                 _write_rows(writers, chunk, feat.transform(chunk.texts))
                 meter.advance("writing", len(chunk.records))
-        parts = {part: w.close() for part, w in writers.items()}
+        parts = {part: w.close(weigh) for part, w in writers.items()}
         split = ({"dev": "file", "seed": None} if dev is not None else
                  {"dev": float(dev_fraction) if held.any() else 0.0, "seed": int(seed) if held.any() else None})
         reader_json = {"format": reader.format, "text_column": reader.text_column, "label_column": reader.label_column,
@@ -243,8 +239,8 @@ def _write_rows(writers, chunk: Chunk, X: sp.csr_matrix) -> None:
                               chunk.sources if whole else [chunk.sources[i] for i in rows.tolist()])
 
 
-def _fit_hashed(tmp: Path, chunks: Iterable[Chunk], config, writers, map_chunks, meter) -> Featurizer:
-    """Count every chunk hashed (``map_chunks``), write raw shards into ``tmp/raw``, and fit the limits."""
+def _fit_hashed(chunks: Iterable[Chunk], config, writers, map_chunks, meter) -> Featurizer:
+    """Count every chunk hashed (``map_chunks``), hand the raw counts to the writers, and fit the limits."""
     df = np.zeros(config.hash_space, dtype=np.int64)
     n_train = 0
     for counts, chunk in map_chunks(_HashedTask(config), chunks):
@@ -253,8 +249,6 @@ def _fit_hashed(tmp: Path, chunks: Iterable[Chunk], config, writers, map_chunks,
         n_train += train.shape[0]
         _write_rows(writers, chunk, counts)
         meter.advance("counting", len(chunk.records))
-    for w in writers.values():
-        w.close()
     feat = Featurizer(config)
     keep = df_mask(df, n_train, config.min_df, config.max_df)
     feat.used_columns, feat.document_frequency, feat.n_documents = np.flatnonzero(keep), df * keep, n_train
@@ -271,16 +265,15 @@ class _HashedTask:
         return count_hashed_chunk(chunk, self.config)
 
 
-def _weigh_raw_shards(tmp: Path, feat: Featurizer, writers, meter) -> None:
-    raw = tmp / "raw"
-    for folder in sorted((p for p in raw.iterdir() if p.is_dir()), key=lambda p: p.name):
-        part = folder.name.split("-")[0]
-        a = {k: np.load(folder / f"{k}.npy", allow_pickle=False) for k in ("data", "indices", "indptr", "labels", "records")}
-        counts = sp.csr_matrix((a["data"], a["indices"], a["indptr"]), shape=(len(a["indptr"]) - 1, feat.n_features))
-        writers[part].add(feat.from_counts(counts), a["labels"], a["records"], read_sources(folder / "sources.txt"))
-        meter.advance("writing", counts.shape[0])
-        shutil.rmtree(folder)
-    raw.rmdir()
+class _Weigh:
+    """Hashing mode: a shard's raw counts weighted (``from_counts``) as its writer closes, counted as written."""
+
+    def __init__(self, feat: Featurizer, meter):
+        self.feat, self.meter = feat, meter
+
+    def __call__(self, counts: sp.csr_matrix) -> sp.csr_matrix:
+        self.meter.advance("writing", counts.shape[0])
+        return self.feat.from_counts(counts)
 
 
 class _Meter:

@@ -357,3 +357,14 @@ def test_evidence_from_a_store_ranks_the_rare_columns_once(corpus_csv, tmp_path,
     monkeypatch.setattr(lintext.from_store, "rare_columns", counted)
     featurize(corpus_csv, tmp_path / "s")
     assert build_model(tmp_path / "s", options={"epochs": 1}).info["explain"]["rare_features"] and calls == [1]
+
+
+@pytest.mark.parametrize("shard_rows", [1000, 25])
+def test_hashing_mode_writes_each_shard_once(corpus_csv, tmp_path, monkeypatch, shard_rows):
+    # The raw counts are weighted as each shard is written, not written raw and rewritten: one
+    # data.npy saved per shard of the store (its matrix: test_store_round_trips_to_the_matrix...).
+    saved = []
+    save = np.save
+    monkeypatch.setattr(np, "save", lambda path, *a, **k: saved.append(os.path.basename(path)) or save(path, *a, **k))
+    store = featurize(corpus_csv, tmp_path / "s", featurizer=FeaturizerConfig(hash_space=2**12), shard_rows=shard_rows)
+    assert saved.count("data.npy") == len(store.shards("data")) + len(store.shards("dev")) > 1
