@@ -2,7 +2,9 @@
 
 L1 penalties (SGD's cumulative penalty, FTRL's ``lambda_1``) set weights to exactly zero; the
 model directory (``model.json``, ``"sparsity"``) and the report give the count per log-spaced
-document-frequency bin (``1``, ``2``, ``3–4``, ``5–8``, ... the bins of :mod:`lintext.report.stats`).
+document-frequency bin: ``1``, ``2``, ``3–4``, ``5–8``, ``9–16`` … bin ``k >= 1`` holds
+``2^(k-1) < df <= 2^k``, bin 0 holds ``df = 1``. The bins are defined here once; the report's
+(:mod:`lintext.report.stats`) are these.
 """
 
 from __future__ import annotations
@@ -10,16 +12,22 @@ from __future__ import annotations
 import numpy as np
 
 
-def frequency_bin(df) -> np.ndarray:
+def bin_index(df) -> np.ndarray:
     """Log-spaced bin of each document frequency: 1 -> 0, 2 -> 1, 3–4 -> 2, 5–8 -> 3, …; 0 -> -1."""
     df = np.asarray(df, dtype=np.int64)
+    # frexp(n)[1] is n's bit length for n >= 1 (and 0 for n = 0): ceil(log2(df)) without rounding.
     k = np.frexp(np.maximum(df - 1, 0).astype(np.float64))[1].astype(np.int64)
     return np.where(df >= 1, k, -1)
 
 
-def bin_name(k: int) -> str:
+def bin_bounds(k: int) -> tuple[int, int]:
+    """Smallest and largest document frequency in bin ``k``."""
+    return (1, 1) if k == 0 else (2 ** (k - 1) + 1, 2**k)
+
+
+def bin_label(k: int) -> str:
     """``"1"``, ``"2"``, ``"3–4"``, ``"5–8"``, … for bin ``k``."""
-    lo, hi = (1, 1) if k == 0 else (2 ** (k - 1) + 1, 2**k)
+    lo, hi = bin_bounds(k)
     return str(lo) if lo == hi else f"{lo}–{hi}"
 
 
@@ -33,8 +41,8 @@ def zero_weights(coef, document_frequency) -> dict:
     coef = np.asarray(coef)
     df = np.asarray(document_frequency)
     zero = ~np.any(coef != 0, axis=1)
-    bins = frequency_bin(df)
+    bins = bin_index(df)
     seen = bins >= 0
-    rows = [{"bin": bin_name(int(k)), "features": int(np.sum(bins == k)), "exactly_zero": int(np.sum(zero & (bins == k)))}
+    rows = [{"bin": bin_label(int(k)), "features": int(np.sum(bins == k)), "exactly_zero": int(np.sum(zero & (bins == k)))}
             for k in np.unique(bins[seen])]
     return {"features": int(seen.sum()), "exactly_zero": int(np.sum(zero & seen)), "by_bin": rows}

@@ -25,7 +25,7 @@ Vocabulary
     gradient moves the weight), mean over labels (NaN for L-BFGS, where there is none).
 
 Frequency bins are log-spaced: ``1``, ``2``, ``3–4``, ``5–8``, ``9–16`` … bin ``k >= 1``
-holds ``2^(k-1) < df <= 2^k``; bin 0 holds ``df = 1``.
+holds ``2^(k-1) < df <= 2^k``; bin 0 holds ``df = 1`` (:mod:`lintext.engine.sparsity` defines them).
 """
 
 from __future__ import annotations
@@ -34,6 +34,7 @@ import math
 
 import numpy as np
 
+from ..engine.sparsity import bin_bounds, bin_index, bin_label
 from ..errors import ConfigError
 from ..evidence import RARE_DF, explain_section, hashed_names
 
@@ -128,24 +129,6 @@ def weight_rows(model, columns) -> np.ndarray:
 
 
 # ---------------------------------------------------------------- frequency bins
-
-
-def bin_index(df) -> np.ndarray:
-    """Log-spaced bin of each document frequency: 1 -> 0, 2 -> 1, 3–4 -> 2, 5–8 -> 3, …; 0 -> -1."""
-    df = np.asarray(df, dtype=np.int64)
-    # frexp(n)[1] is n's bit length for n >= 1 (and 0 for n = 0): ceil(log2(df)) without rounding.
-    k = np.frexp(np.maximum(df - 1, 0).astype(np.float64))[1].astype(np.int64)
-    return np.where(df >= 1, k, -1)
-
-
-def bin_bounds(k: int) -> tuple[int, int]:
-    """Smallest and largest document frequency in bin ``k``."""
-    return (1, 1) if k == 0 else (2 ** (k - 1) + 1, 2**k)
-
-
-def bin_label(k: int) -> str:
-    lo, hi = bin_bounds(k)
-    return str(lo) if lo == hi else f"{lo}–{hi}"
 
 
 def frequency_bins(table: dict) -> list[dict]:

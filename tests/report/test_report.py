@@ -29,6 +29,7 @@ from lintext.text.featurizer import Featurizer, FeaturizerConfig
 from lintext.text.readers import Corpus
 from lintext.model import Model
 from lintext.evidence import snippet, training_extras
+from lintext.engine.sparsity import zero_weights
 from lintext.report.stats import bin_index, bin_label, feature_table, frequency_bins, rare_heavy, top_features
 from lintext.report.writer import CSV_COLUMNS, write_comparison, write_report
 
@@ -175,6 +176,13 @@ def test_frequency_bins_worked_by_hand():
     df = np.array([1, 2, 3, 4, 5, 8, 9, 16, 17, 0])
     assert bin_index(df).tolist() == [0, 1, 2, 2, 3, 3, 4, 4, 5, -1]
     assert [bin_label(k) for k in range(6)] == ["1", "2", "3–4", "5–8", "9–16", "17–32"]
+    # model.json's exactly-zero counts use the same bins: rows 0 (df 1), 3 (df 4) and 9 (df 0, unseen) are zero
+    coef = np.ones((10, 2))
+    coef[[0, 3, 9]] = 0.0
+    assert zero_weights(coef, df)["by_bin"] == [
+        {"bin": "1", "features": 1, "exactly_zero": 1}, {"bin": "2", "features": 1, "exactly_zero": 0},
+        {"bin": "3–4", "features": 2, "exactly_zero": 1}, {"bin": "5–8", "features": 2, "exactly_zero": 0},
+        {"bin": "9–16", "features": 2, "exactly_zero": 0}, {"bin": "17–32", "features": 1, "exactly_zero": 0}]
     table = {
         "column": np.arange(6),
         "document_frequency": np.array([1, 1, 1, 1, 3, 4]),
