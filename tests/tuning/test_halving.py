@@ -41,8 +41,15 @@ def test_halving_keeps_the_full_grids_best_run_and_its_weights(small_split):
                   workers=1, options=OPTIONS)
     full = sweep(small_split["train"], **kwargs)
     halved = sweep(small_split["train"], halving=3, **kwargs)
-    # 12 runs, 9 epochs, eta 3: s = 2, rungs (12 runs, 1 epoch), (4, 3), (1, 9)
-    assert [(r["epochs"], len(r["runs"])) for r in halved.settings["halving"]["rungs"]][0] == (1, 12)
+    # 12 runs, 9 epochs, eta 3: s = 2, rungs (12 runs, 1 epoch), (4, 3), (1, 9); no run here stops early
+    # before the last rung, so each rung trains all its configurations
+    rungs = halved.settings["halving"]["rungs"]
+    assert [(r["epochs"], r["configurations"], len(r["runs"])) for r in rungs] == [(1, 12, 12), (3, 4, 4), (9, 1, 1)]
+    # a rung trains the runs that went on past the rung before it, smallest learning rate first
+    assert sorted(rungs[0]["runs"]) == list(range(12))
+    for before, rung in zip(rungs, rungs[1:]):
+        assert sorted(rung["runs"]) == [r["run"] for r in halved.rows if r["epochs_run"] > before["epochs"]]
+        assert [halved.rows[i]["learning_rate"] for i in rung["runs"]] == sorted(halved.rows[i]["learning_rate"] for i in rung["runs"])
     assert halved.best == full.best
     assert np.array_equal(halved.model.coef, full.model.coef) and np.array_equal(halved.model.intercept, full.model.intercept)
     pruned = [r for r in halved.rows if r["status"].startswith("pruned at epoch ")]
