@@ -308,6 +308,16 @@ class Featurizer:
                 fh.write(f"{escape(name)}\t{j}\t{df}\n")
 
     @classmethod
+    def from_vocabulary(cls, config, word_names: list, char_names: list, document_frequency, n_documents: int) -> "Featurizer":
+        """A fitted featurizer from n-grams counted elsewhere (a feature store's streamed count): word
+        n-grams first, then character n-grams, with their document frequencies in that order."""
+        feat = cls(config)
+        feat.feature_names = list(word_names) + [f"[{g}]" for g in char_names]
+        feat.document_frequency, feat.n_documents = document_frequency, n_documents
+        feat._n_word = len(word_names)
+        return feat
+
+    @classmethod
     def load(cls, state: dict, vocabulary_path: str | os.PathLike, n_jobs: int = 1) -> "Featurizer":
         """Rebuild a fitted featurizer from :meth:`to_json` and a vocabulary TSV."""
         try:

@@ -122,11 +122,8 @@ class VocabularyCounter:
             kept = kept_by_frequency(df, lambda: totals, self.n_documents, cfg)
             picked.append([grams[j] for j in order[kept].tolist()])
             dfs.append(df[kept])
-        feat = Featurizer(cfg)
-        feat.feature_names = picked[0] + [f"[{g}]" for chars in picked[1:] for g in chars]
-        feat.document_frequency, feat.n_documents = np.concatenate(dfs), self.n_documents
-        feat._n_word = len(picked[0])  # word columns come first (Featurizer.load counts them off the names)
-        return feat
+        chars = [g for names in picked[1:] for g in names]
+        return Featurizer.from_vocabulary(cfg, picked[0], chars, np.concatenate(dfs), self.n_documents)
 
 
 def count_hashed_chunk(chunk: Chunk, config: FeaturizerConfig) -> tuple[sp.csr_matrix, Chunk]:
