@@ -16,7 +16,7 @@ from .display import Display
 from .options import (ClusterOpt, DataPath, DevFractionOpt, DevOpt, ForceOpt, JobsOpt, QuietOpt, featurizer_options,
                       reader_options)
 
-SHARD_ROWS_DEFAULT = 100_000  # lintext.text.streaming.SHARD_ROWS (not imported: --help loads no library)
+SHARD_ROWS_DEFAULT = 100_000  # = lintext.text.store.SHARD_ROWS (a test ties them; not imported: --help loads no library)
 
 
 @command

@@ -68,3 +68,16 @@ def test_importing_the_pipeline_loads_neither_numba_nor_scikit_learn():
     out = subprocess.run([sys.executable, "-c", check], capture_output=True, text=True, cwd=ROOT, timeout=120)
     assert out.returncode == 0, out.stderr
     assert json.loads(out.stdout.rsplit("loaded: ", 1)[1]) == []
+
+
+def test_featurize_shard_rows_default_is_the_stores():
+    # The command line keeps a copy of the store's default (importing lintext.text.store would load the
+    # library for --help); the copy must equal the library's, which featurize_store and from_store use.
+    import inspect
+
+    from lintext.cli.commands_data import SHARD_ROWS_DEFAULT, featurize
+    from lintext.text import store, streaming
+
+    assert inspect.signature(featurize).parameters["shard_rows"].default == SHARD_ROWS_DEFAULT
+    assert SHARD_ROWS_DEFAULT == store.SHARD_ROWS
+    assert inspect.signature(streaming.featurize_store).parameters["shard_rows"].default == store.SHARD_ROWS
