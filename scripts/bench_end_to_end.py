@@ -163,7 +163,7 @@ built = time.perf_counter()
 report = []
 def extra(folder):
     started = time.perf_counter()
-    from lintext.report.writer import write_report  # as the command does: matplotlib loads here
+    from lintext.report.writer import write_report  # as the command does
     write_report(model, folder)
     report.append(time.perf_counter() - started)
 model.save(out, extra=extra)

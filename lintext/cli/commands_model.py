@@ -59,7 +59,7 @@ def train(
         display.close()
 
     def report(folder, spinner):
-        from ..report.writer import write_report  # matplotlib loads only when a report is written
+        from ..report.writer import write_report
 
         if spinner is not None:
             spinner.update("Writing the report")

@@ -1,11 +1,10 @@
 """The model explained: per-feature statistics (document frequency against how far the optimizer
 moved each weight), frequency bins, the strongest and the rare-but-heavy features
-(:mod:`~lintext.report.stats`), figures drawn with matplotlib as inline SVG
-(:mod:`~lintext.report.figures`), one page layout (:mod:`~lintext.report.layout`), and the pages
+(:mod:`~lintext.report.stats`), figures written as inline SVG by a small chart drawer of our own
+(:mod:`~lintext.report.figures` over :mod:`~lintext.report.svgplot`), one page layout (:mod:`~lintext.report.layout`), and the pages
 built on it: a model's report and the comparison of several models
 (:mod:`~lintext.report.pages`, written by :mod:`~lintext.report.writer` with ``features.csv``),
 the sweep page and the probe page. Reads models; knows nothing of tuning or the command line.
-matplotlib loads only when a figure is drawn.
 
 Public functions: :func:`~lintext.report.stats.feature_table`,
 :func:`~lintext.report.stats.frequency_bins`, :func:`~lintext.report.stats.top_features`,

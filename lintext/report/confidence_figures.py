@@ -25,27 +25,23 @@ def _reliability(panels):
         return None
     fig, axes = new_figure(10.5, 4.0, len(panels), sharey=True)
     for ax, (title, series) in zip(axes, panels):
-        ax.plot([0, 1], [0, 1], color=MUTED, ls=":", lw=1.2, label="perfect calibration")
+        ax.line([0, 1], [0, 1], MUTED, style=":", width=1.2, label="perfect calibration")
         for k, (name, table) in enumerate(series):
             if not table:
                 continue
             count = np.array(table["count"], dtype=float)
             keep = count > 0
-            conf = np.array([c for c, n in zip(table["confidence"], count) if n > 0], dtype=float)
-            acc = np.array([a for a, n in zip(table["accuracy"], count) if n > 0], dtype=float)
-            size = 12 + 160 * count[keep] / count.sum()
-            ax.plot(conf, acc, color=SERIES[k], lw=1.4, ls="-" if k == 0 else "--")
-            ax.scatter(conf, acc, s=size, color=SERIES[k], alpha=0.85, edgecolors="white", linewidths=0.6, label=name,
-                       zorder=3)
+            conf = np.array(table["confidence"], dtype=float)[keep]
+            acc = np.array(table["accuracy"], dtype=float)[keep]
+            size = 2 * np.sqrt((12 + 160 * count[keep] / count.sum()) / np.pi)  # a disc's area grows with its documents
+            ax.line(conf, acc, SERIES[k], width=1.4, style="-" if k == 0 else "--")
+            ax.scatter(conf, acc, SERIES[k], size=size, alpha=0.85, edge="white", label=name)
         edges = np.linspace(0, 1, (len(series[0][1]["count"]) if series and series[0][1] else 15) + 1)
-        ax.set_xticks(edges[::3])
-        ax.set_xlim(0, 1.02)
-        ax.set_ylim(0, 1.02)
-        ax.set_aspect("equal")
-        ax.set_xlabel("mean probability of the predicted label, per bin")
-        ax.set_title(title)
-        ax.legend(loc="upper left", fontsize=8)
-    axes[0].set_ylabel("accuracy in the bin")
+        ax.xticks = (edges[::3].tolist(), [f"{v:g}" for v in edges[::3]])
+        ax.square = True
+        ax.set(xlim=(0, 1.02), ylim=(0, 1.02), xlabel="mean probability of the predicted label, per bin", title=title)
+        ax.legend("upper left", size=8)
+    axes[0].set(ylabel="accuracy in the bin")
     return fig
 
 
@@ -70,26 +66,21 @@ def _coverage(series):
         with np.errstate(invalid="ignore", divide="ignore"):
             acc = np.where(decided > 0, correct / np.maximum(decided, 1), np.nan)
         colour = SERIES[k]
-        ax_c.plot(share, acc, color=colour, drawstyle="steps-post", label=name)
+        ax_c.line(share, acc, colour, steps="post", label=name)
         for m, mark in enumerate(MARKED):
             i = int(np.argmin(np.abs(t - mark)))
             if decided[i] > 0:
-                ax_c.plot([share[i]], [acc[i]], "o", color=colour, ms=5, mfc="white", mew=1.4)
-                if k == 0:  # labels alternate above-left and below-right of the ring
-                    ax_c.annotate(f"≥ {mark:g}", (share[i], acc[i]), textcoords="offset points",
-                                  xytext=(-7, 7) if m % 2 == 0 else (7, -12), ha="right" if m % 2 == 0 else "left",
-                                  fontsize=8, color=INK)
-        ax_t.plot(t, share, color=colour, label=f"{name}: share decided")
-        ax_t.plot(t, acc, color=colour, ls="--", label=f"{name}: accuracy on decided")
-    ax_c.set_xlim(1.02, -0.02)  # from everything decided on the left to little decided on the right
-    ax_c.set_xlabel("share of documents decided (coverage)")
-    ax_c.set_ylabel("accuracy on the documents decided")
-    ax_c.set_title("Accuracy against coverage (rings: thresholds)")
-    ax_c.legend(loc="lower right")
-    ax_t.set_xlim(0, 1)
-    ax_t.set_ylim(0, 1.02)
-    ax_t.set_xlabel("threshold on the best probability")
-    ax_t.set_ylabel("share / accuracy")
-    ax_t.set_title("Against the threshold")
-    ax_t.legend(loc="lower left", fontsize=7.5)
+                ax_c.markers([share[i]], [acc[i]], colour, "ring", size=6, width=1.4)
+                if k == 0:  # labels alternate above-left and below-right of the ring (the x axis runs right to left)
+                    ax_c.text(share[i], acc[i], f"≥ {mark:g}", dx=-7 if m % 2 == 0 else 7, dy=7 if m % 2 == 0 else -12,
+                              anchor="end" if m % 2 == 0 else "start", size=8, colour=INK)
+        ax_t.line(t, share, colour, label=f"{name}: share decided")
+        ax_t.line(t, acc, colour, style="--", label=f"{name}: accuracy on decided")
+    # from everything decided on the left to little decided on the right
+    ax_c.set(xlim=(1.02, -0.02), xlabel="share of documents decided (coverage)", ylabel="accuracy on the documents decided",
+             title="Accuracy against coverage (rings: thresholds)")
+    ax_c.legend("lower right")
+    ax_t.set(xlim=(0, 1), ylim=(0, 1.02), xlabel="threshold on the best probability", ylabel="share / accuracy",
+             title="Against the threshold")
+    ax_t.legend("lower left", size=7.5)
     return fig

@@ -17,12 +17,12 @@ import os
 from html import escape
 from pathlib import Path
 
-import matplotlib as mpl
 import numpy as np
 
 from ..engine.metrics import AVERAGE_NOTE, confused_pairs
 from ..files import atomic_file
 from . import figures
+from .svgdraw import blend
 from .layout import figure_block, fmt, pct, table
 
 MATRIX_MAX_LABELS = 12
@@ -141,40 +141,35 @@ def confusion_order(counts) -> np.ndarray:
 # ---------------------------------------------------------------- figures
 
 
+MATRIX_STOPS = ["#ffffff", "#9fc9cf", figures.SERIES[0], "#0b343a"]
+HEAT_STOPS = ["#ffffff", "#f3cf9c", "#d9793a", "#a3342c", "#3d0d18"]
+DIAGONAL = "#c9d0d6"
+
+
 def _matrix(counts, labels, which):
-    """Small matrices: cell colour is the share of the true label, text the count."""
+    """Small matrices: cell colour is the share of the true label (ten shades), text the count."""
     counts = np.asarray(counts, dtype=np.float64)
     n = len(labels)
     side = min(8.5, 2.6 + 0.62 * n)
     fig, (ax,) = figures.new_figure(side + 1.2, side)
     totals = counts.sum(axis=1, keepdims=True)
     share = np.divide(counts, totals, out=np.zeros_like(counts), where=totals > 0)
-    # ten discrete shades drawn as vector cells, so neither the matrix nor its colour bar is rasterised
-    cmap = mpl.colors.LinearSegmentedColormap.from_list("lintext", ["#ffffff", "#9fc9cf", figures.SERIES[0], "#0b343a"], N=10)
-    norm = mpl.colors.BoundaryNorm(np.linspace(0, 1, 11), cmap.N)
-    edges = np.arange(n + 1) - 0.5
-    image = ax.pcolormesh(edges, edges, share, cmap=cmap, norm=norm, edgecolors="white", linewidth=0.8)
-    ax.set_xlim(-0.5, n - 0.5)
-    ax.set_ylim(n - 0.5, -0.5)
-    ax.set_aspect("equal")
-    ax.grid(False)
-    for i in range(n):
-        for j in range(n):
-            ax.text(j, i, f"{int(counts[i, j])}", ha="center", va="center", fontsize=8.5,
-                    color="white" if share[i, j] > 0.45 else figures.INK)
-    ax.set_xticks(range(n), labels, rotation=35, ha="right")
-    ax.set_yticks(range(n), labels)
-    ax.set_xlabel("predicted label")
-    ax.set_ylabel("true label")
-    ax.set_title(f"{which} set: counts; colour = share of the true label")
-    ax.spines[:].set_visible(False)
-    bar = fig.colorbar(image, ax=ax, shrink=0.75)
-    bar.set_label("share of the row (recall on the diagonal)")
+    shades = [blend(MATRIX_STOPS, (k + 0.5) / 10) for k in range(10)]
+    level = np.minimum((share * 10).astype(np.int64), 9)
+    ax.cells([[shades[v] for v in row] for row in level.tolist()], texts=counts.astype(np.int64).tolist(),
+             text_colours=[["white" if v > 0.45 else figures.INK for v in row] for row in share.tolist()], gap=1.6)
+    ax.xticks = (list(range(n)), [str(name) for name in labels])
+    ax.yticks = (list(range(n)), [str(name) for name in labels])
+    ax.xtick_rotation = 35
+    ax.square = True
+    ax.set(xlabel="predicted label", ylabel="true label", title=f"{which} set: counts; colour = share of the true label")
+    fig.colour_scale(shades, [k / 5 for k in range(6)], [f"{k / 5:g}" for k in range(6)],
+                     "share of the row (recall on the diagonal)")
     return fig
 
 
 def _heat(counts, labels, shown, which):
-    """Many labels: one image (no text per cell), off-diagonal shares on their own colour scale."""
+    """Many labels: one coloured cell per pair (no text per cell), off-diagonal shares on their own colour scale."""
     counts = np.asarray(counts, dtype=np.float64)
     support = counts.sum(axis=1, keepdims=True)
     share = np.divide(counts, support, out=np.zeros_like(counts), where=support > 0)[np.ix_(shown, shown)]
@@ -187,20 +182,24 @@ def _heat(counts, labels, shown, which):
     cell = 0.15  # inches per label: 10.8 pt, room for 7.5-pt tick labels at the page's width
     side = max(4.0, cell * n)
     fig, (ax,) = figures.new_figure(side + 1.6, side + 2.2)
-    cmap = mpl.colors.LinearSegmentedColormap.from_list(
-        "lintext-heat", ["#ffffff", "#f3cf9c", "#d9793a", "#a3342c", "#3d0d18"]).with_extremes(bad="#c9d0d6")  # bad: diagonal
-    image = ax.imshow(np.ma.masked_invalid(off), cmap=cmap, vmin=0, vmax=top, interpolation="nearest", aspect="equal")
+    steps = 32
+    palette = [blend(HEAT_STOPS, k / (steps - 1)) for k in range(steps)]
+    shares = np.nan_to_num(off / top, nan=0.0)
+    level = np.where(shares > 0, np.maximum(1, np.rint(shares * (steps - 1))), 0).astype(np.int64)  # any confusion shows
+    colours = [[palette[v] if v else None for v in row] for row in level.tolist()]  # white cells: the background
+    for i in range(n):
+        colours[i][i] = DIAGONAL
+    ax.cells(colours)
     names = [str(labels[k]) for k in shown]
-    ax.set_xticks(range(n), names, rotation=90, fontsize=7.5)
-    ax.set_yticks(range(n), names, fontsize=7.5)
-    ax.tick_params(length=2, pad=1)
-    ax.grid(False)
-    ax.set_xlabel("predicted label")
-    ax.set_ylabel("true label")
-    ax.set_title(f"{which} set: share of each true label predicted as another (diagonal grey)")
-    bar = fig.colorbar(image, ax=ax, location="bottom", shrink=0.45, aspect=30, pad=0.02,
-                       format=mpl.ticker.PercentFormatter(1.0, decimals=0))
-    bar.set_label("share of the row's documents")
+    ax.xticks = (list(range(n)), names)
+    ax.yticks = (list(range(n)), names)
+    ax.xtick_rotation = 90
+    ax.tick_size = 7.5
+    ax.square = True
+    ax.set(xlabel="predicted label", ylabel="true label",
+           title=f"{which} set: share of each true label predicted as another (diagonal grey)")
+    ticks = [t for t in np.linspace(0, 1, 5)]
+    fig.colour_scale(palette, ticks, [f"{t * top:.0%}" for t in ticks], "share of the row's documents", at="below")
     return fig
 
 

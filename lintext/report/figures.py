@@ -1,108 +1,43 @@
-"""Figures of the report, drawn with matplotlib and returned as inline SVG text.
+"""Figures of the report, returned as inline SVG text (drawn by :mod:`lintext.report.svgplot`).
 
-No pyplot (no global figure state, no GUI backend): each function builds a
-:class:`matplotlib.figure.Figure`, and :func:`svg_text` turns it into an ``<svg>``
-element with its own id prefix, text kept as text (``svg.fonttype = "none"``), no
-metadata, no DOCTYPE and no namespace URLs, so the page references nothing outside
-itself. A function returns ``None`` when the model lacks what the figure shows.
+Each function builds a :class:`~lintext.report.svgplot.Chart` and :func:`render` writes it as an
+``<svg>`` element with its own id prefix, text kept as text, no metadata and no external
+references, so the page references nothing outside itself. A function returns ``None`` when the
+model lacks what the figure shows.
 """
 
 from __future__ import annotations
 
-import io
 import math
-import re
-import warnings
 
-import matplotlib as mpl
 import numpy as np
-from matplotlib.figure import Figure
 
 from .stats import bin_bounds
+from .svgdraw import INK, MUTED  # noqa: F401  (INK: the other figure modules' colour)
+from .svgplot import Chart
 
-INK = "#1d232b"
-MUTED = "#4a5563"
-GRID = "#dde2e7"
 POINTS = "#6c8a99"
 SERIES = ["#17656f", "#b35c00", "#7b3a78", "#33507a", "#5d6b12", "#a3342c", "#2f7d4f", "#8a5a14"]
 
-STYLE = {
-    "svg.fonttype": "none",
-    "svg.hashsalt": "lintext-report",
-    "font.family": "sans-serif",
-    "font.sans-serif": ["DejaVu Sans", "Liberation Sans", "Arial", "Helvetica"],
-    "font.size": 9.5,
-    "axes.titlesize": 10.5,
-    "axes.labelsize": 9.5,
-    "axes.edgecolor": MUTED,
-    "axes.labelcolor": INK,
-    "axes.titlecolor": INK,
-    "axes.grid": True,
-    "grid.color": GRID,
-    "grid.linewidth": 0.7,
-    "axes.axisbelow": True,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "xtick.color": INK,
-    "ytick.color": INK,
-    "legend.frameon": False,
-    "legend.fontsize": 8.5,
-    "lines.linewidth": 1.8,
-    "figure.facecolor": "white",
-    "axes.facecolor": "white",
-}
-
-
 # One marker per meaning on every page: a ring is a best epoch, a star the best run, a cross a
 # run that diverged.
-BEST_EPOCH = {"marker": "o", "ms": 7, "mfc": "white", "mew": 1.6}
-BEST_RUN = {"marker": "*", "ms": 16, "color": "gold", "mec": "black"}
-DIVERGED = {"marker": "x", "ms": 9, "mew": 1.8}
+BEST_EPOCH = {"kind": "ring", "size": 7, "width": 1.6}
+BEST_RUN = {"kind": "*", "size": 16, "edge": "black"}
+DIVERGED = {"kind": "x", "size": 9, "width": 1.8}
+GOLD = "#e3b505"
 
 
 def new_figure(width: float, height: float, ncols: int = 1, sharey: bool = False):
-    """A constrained-layout figure (no pyplot) and its row of ``ncols`` axes."""
-    fig = Figure(figsize=(width, height), layout="constrained")
-    axes = fig.subplots(1, ncols, squeeze=False, sharey=sharey)[0]
-    return fig, list(axes)
-
-
-def svg_text(fig: Figure, prefix: str, title: str) -> str:
-    """The figure as an inline ``<svg>`` element (ids prefixed with ``prefix``)."""
-    buf = io.StringIO()
-    fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None, "Format": None, "Type": None})
-    text = buf.getvalue()
-    text = text[text.index("<svg"):]
-    text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.S)
-    text = re.sub(r'\s+xmlns(:\w+)?="[^"]*"', "", text)
-    ids = set(re.findall(r'\sid="([^"]+)"', text))
-    if ids:
-        pattern = re.compile(r'(\sid="|#)(' + "|".join(re.escape(i) for i in sorted(ids, key=len, reverse=True)) + r')(?=["\)])')
-        text = pattern.sub(lambda m: f"{m.group(1)}{prefix}-{m.group(2)}", text)
-    size = re.match(r'<svg([^>]*?)\swidth="([\d.]+)pt"\s+height="([\d.]+)pt"', text)
-    if size:
-        width = float(size.group(2))
-        text = re.sub(r'\swidth="[\d.]+pt"\s+height="[\d.]+pt"',
-                      f' class="figure" role="img" style="max-width:{width:.0f}pt"', text, count=1)
-    text = text.replace("<svg", f'<svg aria-label="{_attr(title)}"', 1)
-    return text.strip()
-
-
-def _attr(text: str) -> str:
-    return text.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
+    """A chart of ``width`` x ``height`` inches and its row of ``ncols`` panels."""
+    chart = Chart(width, height, 1, ncols, share_y=sharey)
+    return chart, list(chart.panels)
 
 
 def render(build, prefix: str, title: str, *args, **kwargs) -> str | None:
-    """``build(*args, **kwargs)`` drawn in the report's style and returned as inline SVG
+    """``build(*args, **kwargs)`` (a :class:`Chart`) as inline SVG with ids prefixed by ``prefix``
     (``None`` when ``build`` returns ``None``: nothing to show)."""
-    with mpl.rc_context(STYLE), warnings.catch_warnings():
-        # Labels in scripts the measuring font lacks (Japanese, emoji) would warn once per glyph;
-        # the SVG keeps them as text (svg.fonttype none), and the browser draws them with its fonts.
-        warnings.filterwarnings("ignore", message=r"Glyph \d+ .*missing from", category=UserWarning)
-        fig = build(*args, **kwargs)
-        if fig is None:
-            return None
-        return svg_text(fig, prefix, title)
+    chart = build(*args, **kwargs)
+    return None if chart is None else chart.svg(prefix, title)
 
 
 def _finite(values) -> np.ndarray:
@@ -110,37 +45,12 @@ def _finite(values) -> np.ndarray:
 
 
 def _epoch_axis(ax, epochs):
-    ax.set_xlabel("epoch")
+    ax.xlabel = "epoch"
     epochs = [int(e) for e in epochs]
+    ax.integer_x = True
     if len(epochs) and max(epochs) - min(epochs) < 3:
-        ax.set_xticks(range(min(epochs), max(epochs) + 1))
-        ax.set_xlim(min(epochs) - 0.5, max(epochs) + 0.5)
-    else:
-        ax.xaxis.set_major_locator(mpl.ticker.MaxNLocator(integer=True))
-
-
-def _tick(value, _pos=None) -> str:
-    return f"{value:g}"
-
-
-def plain_log(ax, axis: str = "y") -> None:
-    """Log-axis tick labels as plain numbers (``0.2``, ``5``, ``100``), minor ones labelled on short spans."""
-    target = ax.yaxis if axis == "y" else ax.xaxis
-    lo, hi = ax.get_ylim() if axis == "y" else ax.get_xlim()
-    formatter = mpl.ticker.FuncFormatter(_tick)
-    target.set_major_formatter(formatter)
-    if lo > 0 and hi / lo < 40:
-        target.set_minor_locator(mpl.ticker.LogLocator(subs=(2.0, 5.0)))
-        target.set_minor_formatter(formatter)
-    else:
-        target.set_minor_formatter(mpl.ticker.NullFormatter())
-
-
-def _note(ax, text: str):
-    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=MUTED)
-    ax.set_xticks([])
-    ax.set_yticks([])
-    ax.grid(False)
+        ax.xticks = (list(range(min(epochs), max(epochs) + 1)), [str(e) for e in range(min(epochs), max(epochs) + 1)])
+        ax.xlim = (min(epochs) - 0.5, max(epochs) + 0.5)
 
 
 # ---------------------------------------------------------------- one model
@@ -154,55 +64,55 @@ def learning_curves(history: list, best_epoch: int | None, loss_name: str, prefi
 def _learning_curves(history, best_epoch, loss_name):
     if not history:
         return None
-    epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)])
+    epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)], dtype=np.float64)
     fig, (ax_loss, ax_metric, ax_lr) = new_figure(10.5, 3.3, 3)
+    at = [i for i, e in enumerate(epochs) if e == best_epoch]
+    curves = {ax_loss: [], ax_metric: [], ax_lr: []}  # (values, colour) of each curve, for the best-epoch rings
     train = _finite(row.get("train_loss") for row in history)
     dev = _finite(row.get("dev_loss") for row in history)
-    ax_loss.plot(epochs, train, color=SERIES[0], marker="o", ms=3, label="train")
+    ax_loss.line(epochs, train, SERIES[0], marker="o", size=5, label="train")
+    curves[ax_loss].append((train, SERIES[0]))
     if np.isfinite(dev).any():
-        ax_loss.plot(epochs, dev, color=SERIES[1], marker="s", ms=3, ls="--", label="dev")
+        ax_loss.line(epochs, dev, SERIES[1], style="--", marker="s", size=5, label="dev")
+        curves[ax_loss].append((dev, SERIES[1]))
     weighted = "weighted " if any(row.get("weighted_loss") for row in history) else ""
-    ax_loss.set_ylabel(f"{weighted}mean {loss_name} loss")
-    ax_loss.set_title("Loss")
-    ax_loss.legend()
+    ax_loss.set(title="Loss", ylabel=f"{weighted}mean {loss_name} loss")
     acc = _finite(row.get("dev_accuracy") for row in history)
     f1 = _finite(row.get("dev_macro_f1") for row in history)
     if np.isfinite(acc).any() or np.isfinite(f1).any():
-        ax_metric.plot(epochs, acc, color=SERIES[2], marker="o", ms=3, label="accuracy")
-        ax_metric.plot(epochs, f1, color=SERIES[3], marker="s", ms=3, ls="--", label="macro-F1")
-        ax_metric.set_ylabel("dev score")
+        ax_metric.line(epochs, acc, SERIES[2], marker="o", size=5, label="accuracy")
+        ax_metric.line(epochs, f1, SERIES[3], style="--", marker="s", size=5, label="macro-F1")
+        curves[ax_metric] += [(acc, SERIES[2]), (f1, SERIES[3])]
+        ax_metric.set(ylabel="dev score")
         ax_metric.legend()
     else:
-        _note(ax_metric, "no dev set:\nno dev scores")
-    ax_metric.set_title("Dev scores")
+        ax_metric.note("no dev set:\nno dev scores")
+    ax_metric.set(title="Dev scores")
     lr = _finite(row.get("learning_rate") for row in history)
     if np.isfinite(lr).any():
-        ax_lr.plot(epochs, lr, color=SERIES[4], marker="o", ms=3, drawstyle="steps-mid")
+        ax_lr.line(epochs, lr, SERIES[4], steps="mid")
+        ax_lr.markers(epochs, lr, SERIES[4], "o", size=5)
+        curves[ax_lr].append((lr, SERIES[4]))
         positive = lr[np.isfinite(lr) & (lr > 0)]
         if positive.size and positive.max() / positive.min() > 20:
-            ax_lr.set_yscale("log")
-            plain_log(ax_lr)
-            ax_lr.set_ylabel("learning rate in effect (log scale)")
+            ax_lr.set(yscale="log", ylabel="learning rate in effect (log scale)")
         else:
-            top = float(np.nanmax(lr)) if np.isfinite(lr).any() else 1.0
-            ax_lr.set_ylim(0, top * 1.25 if top > 0 else 1.0)
-            ax_lr.set_ylabel("learning rate in effect")
+            top = float(np.nanmax(lr))
+            ax_lr.set(ylim=(0, top * 1.25 if top > 0 else 1.0), ylabel="learning rate in effect")
     else:
-        _note(ax_lr, "no learning rate recorded")
-    ax_lr.set_title("Learning rate")
-    at = [i for i, e in enumerate(epochs) if e == best_epoch]
-    for ax in (ax_loss, ax_metric, ax_lr):
-        if not ax.has_data():
+        ax_lr.note("no learning rate recorded")
+    ax_lr.set(title="Learning rate")
+    for ax, drawn in curves.items():
+        if not drawn:
             continue
         _epoch_axis(ax, epochs)
         if at:  # a ring on every curve at the best epoch
-            for line in list(ax.get_lines()):
-                y = line.get_ydata()
-                if len(y) == len(epochs) and np.isfinite(y[at[0]]):
-                    ax.plot([best_epoch], [y[at[0]]], color=line.get_color(), ls="none", **BEST_EPOCH)
-    if at and ax_loss.has_data():
-        ax_loss.plot([], [], color=MUTED, ls="none", label=f"best epoch ({best_epoch})", **BEST_EPOCH)
-        ax_loss.legend()
+            for values, colour in drawn:
+                if np.isfinite(values[at[0]]):
+                    ax.markers([best_epoch], [values[at[0]]], colour, **BEST_EPOCH)
+    if at and curves[ax_loss]:
+        ax_loss.legend_entries.append(dict(label=f"best epoch ({best_epoch})", colour=MUTED, style=None, marker="ring"))
+    ax_loss.legend()
     return fig
 
 
@@ -226,14 +136,14 @@ def _frequency_updates(table, bins, sample):
         (ax_w, norm, "final weight norm, centred across labels (log scale)", "Final weight", "all weights are zero"),
     ]
     for ax, values, ylabel, title, missing in panels:
-        ax.set_title(title)
+        ax.set(title=title)
         ok = np.flatnonzero(usable(values))
         if ok.size == 0:
-            _note(ax, missing)
+            ax.note(missing)
             continue
         shown = np.sort(rng.choice(ok, size=sample, replace=False)) if ok.size > sample else ok
         jitter = np.exp(rng.uniform(-0.18, 0.18, size=shown.size))
-        ax.scatter(df[shown] * jitter, values[shown], s=5, color=POINTS, alpha=0.35, linewidths=0,
+        ax.scatter(df[shown] * jitter, values[shown], POINTS, size=2.6, alpha=0.35,
                    label=f"features ({shown.size:,} of {ok.size:,} shown)" if shown.size < ok.size else "features")
         centres, med, q25, q75 = [], [], [], []
         for row in bins:
@@ -244,15 +154,10 @@ def _frequency_updates(table, bins, sample):
             centres.append(math.sqrt(lo * hi))
             q = np.percentile(members, [25, 50, 75])
             q25.append(q[0]), med.append(q[1]), q75.append(q[2])
-        ax.fill_between(centres, q25, q75, color=SERIES[0], alpha=0.18, linewidth=0, label="middle half per bin")
-        ax.plot(centres, med, color=SERIES[0], marker="o", ms=4, label="median per frequency bin")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
-        plain_log(ax, "x")
-        plain_log(ax, "y")
-        ax.set_xlabel("document frequency in training (log scale, jittered)")
-        ax.set_ylabel(ylabel)
-        ax.legend(loc="best")
+        ax.band(centres, q25, q75, SERIES[0], alpha=0.18, label="middle half per bin")
+        ax.line(centres, med, SERIES[0], marker="o", size=6, label="median per frequency bin")
+        ax.set(xscale="log", yscale="log", xlabel="document frequency in training (log scale, jittered)", ylabel=ylabel)
+        ax.legend("best")
     return fig
 
 
@@ -267,23 +172,21 @@ def _effective_steps(bins):
         return None
     crowded = len(rows) > 7
     fig, (ax,) = new_figure(6.8 + (0.35 * (len(rows) - 7) if crowded else 0), 3.6 if crowded else 3.3)
-    x = np.arange(len(rows))
+    x = np.arange(len(rows), dtype=np.float64)
     med = np.array([r["median_effective_step"] for r in rows])
-    lo = med - np.array([r["effective_step_q25"] for r in rows])
-    hi = np.array([r["effective_step_q75"] for r in rows]) - med
-    ax.errorbar(x, med, yerr=[lo, hi], color=SERIES[2], marker="o", ms=5, capsize=3, lw=1.6)
-    ax.set_xticks(x, [r["label"] for r in rows], rotation=40 if crowded else 0, ha="right" if crowded else "center")
-    top = float((med + hi).max())
-    bottom = float((med - lo).min())
+    q25 = np.array([r["effective_step_q25"] for r in rows])
+    q75 = np.array([r["effective_step_q75"] for r in rows])
+    ax.errorbar(x, med, q25, q75, SERIES[2], marker="o", size=7, width=1.6)
+    ax.xticks = (x.tolist(), [r["label"] for r in rows])
+    ax.xtick_rotation = 40 if crowded else 0
+    ax.xlim = (-0.5, len(rows) - 0.5)
+    top, bottom = float(q75.max()), float(q25.min())
     if bottom > 0 and top / bottom > 20:
-        ax.set_yscale("log")
-        plain_log(ax)
-        ax.set_ylabel("effective step (log scale)")
+        ax.set(yscale="log", ylabel="effective step (log scale)")
     else:
-        ax.set_ylim(0, top * 1.2 if top > 0 else 1.0)  # from zero, so a flat line reads as flat
-        ax.set_ylabel("effective step")
-    ax.set_xlabel("document frequency bin (training documents)")
-    ax.set_title("Final effective step per feature, median and interquartile range")
+        ax.set(ylim=(0, top * 1.2 if top > 0 else 1.0), ylabel="effective step")  # from zero: a flat line reads as flat
+    ax.set(xlabel="document frequency bin (training documents)",
+           title="Final effective step per feature, median and interquartile range")
     return fig
 
 
@@ -309,33 +212,23 @@ def _compare_frequency(series):
         if rows:
             x = [math.sqrt(r["low"] * r["high"]) for r in rows]
             low = [r["update_q25"] if r["update_q25"] > 0 else r["median_update"] for r in rows]
-            ax_u.fill_between(x, low, [r["update_q75"] for r in rows],
-                              color=colour, alpha=0.12, linewidth=0)
-            ax_u.plot(x, [r["median_update"] for r in rows], color=colour, marker="o", ms=4, label=name)
+            ax_u.band(x, low, [r["update_q75"] for r in rows], colour, alpha=0.12)
+            ax_u.line(x, [r["median_update"] for r in rows], colour, marker="o", size=6, label=name)
         steps = [r for r in bins if np.isfinite(r["median_effective_step"]) and r["median_effective_step"] > 0]
         if steps:
             any_step = True
-            ax_s.plot([math.sqrt(r["low"] * r["high"]) for r in steps], [r["median_effective_step"] for r in steps],
-                      color=colour, marker="o", ms=4, label=name)
-    ax_u.set_xscale("log")
-    ax_u.set_yscale("log")
-    plain_log(ax_u, "x")
-    plain_log(ax_u, "y")
-    ax_u.set_xlabel("document frequency in training (log scale)")
-    ax_u.set_ylabel("median sum of |Δw| per feature (log scale)")
-    ax_u.set_title("Update magnitude per frequency bin")
+            ax_s.line([math.sqrt(r["low"] * r["high"]) for r in steps], [r["median_effective_step"] for r in steps],
+                      colour, marker="o", size=6, label=name)
+    ax_u.set(xscale="log", yscale="log", xlabel="document frequency in training (log scale)",
+             ylabel="median sum of |Δw| per feature (log scale)", title="Update magnitude per frequency bin")
     ax_u.legend()
     if any_step:
-        ax_s.set_xscale("log")
-        ax_s.set_yscale("log")
-        plain_log(ax_s, "x")
-        plain_log(ax_s, "y")
-        ax_s.set_xlabel("document frequency in training (log scale)")
-        ax_s.set_ylabel("median effective step (log scale)")
+        ax_s.set(xscale="log", yscale="log", xlabel="document frequency in training (log scale)",
+                 ylabel="median effective step (log scale)")
         ax_s.legend()
     else:
-        _note(ax_s, "no effective steps recorded")
-    ax_s.set_title("Final effective step per frequency bin")
+        ax_s.note("no effective steps recorded")
+    ax_s.set(title="Final effective step per frequency bin")
     return fig
 
 
@@ -355,8 +248,9 @@ def _compare_learning(series):
         return None
     losses = sorted({loss for _, history, _, loss in series if history})
     n_panels = len(losses) + 2
-    fig = Figure(figsize=(10.5, 3.6 if n_panels <= 3 else 6.6), layout="constrained")
-    grid = fig.subplots(1 if n_panels <= 3 else 2, 3 if n_panels <= 3 else 2, squeeze=False).ravel().tolist()
+    rows, cols = (1, 3) if n_panels <= 3 else (2, 2)
+    fig = Chart(10.5, 3.6 if n_panels <= 3 else 6.6, rows, cols)
+    grid = fig.panels
     loss_axes = dict(zip(losses, grid[:len(losses)]))
     ax_acc, ax_lr = grid[len(losses)], grid[len(losses) + 1]
     any_dev = any_lr = False
@@ -366,45 +260,41 @@ def _compare_learning(series):
         if not history:
             continue
         colour = SERIES[k % len(SERIES)]
-        epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)])
+        epochs = np.array([row.get("epoch", i + 1) for i, row in enumerate(history)], dtype=np.float64)
         all_epochs += epochs.tolist()
         ax_loss = loss_axes[loss]
-        (line,) = ax_loss.plot(epochs, _finite(r.get("train_loss") for r in history), color=colour, label=name)
-        handles.append(line)
+        ax_loss.line(epochs, _finite(r.get("train_loss") for r in history), colour)
+        handles.append(dict(label=name, colour=colour, style="-", marker=None))
         dev = _finite(r.get("dev_loss") for r in history)
         if np.isfinite(dev).any():
-            ax_loss.plot(epochs, dev, color=colour, ls="--")
+            ax_loss.line(epochs, dev, colour, style="--")
         acc = _finite(r.get("dev_accuracy") for r in history)
         if np.isfinite(acc).any():
             any_dev = True
-            ax_acc.plot(epochs, acc, color=colour, marker="o", ms=3)
+            ax_acc.line(epochs, acc, colour, marker="o", size=5)
             at = [i for i, e in enumerate(epochs) if e == best] if best else []
             if at:
-                ax_acc.plot([best], [acc[at[0]]], color=colour, ls="none", **BEST_EPOCH)
+                ax_acc.markers([best], [acc[at[0]]], colour, **BEST_EPOCH)
         lr = _finite(r.get("learning_rate") for r in history)
         if np.isfinite(lr).any() and (lr[np.isfinite(lr)] > 0).all():
             any_lr = True
-            ax_lr.plot(epochs, lr, color=colour, drawstyle="steps-mid")
+            ax_lr.line(epochs, lr, colour, steps="mid")
     for loss, ax in loss_axes.items():
-        ax.set_ylabel(f"mean {loss} loss")
-        ax.set_title(f"{loss.capitalize()} loss (solid: train, dashed: dev)")
+        ax.set(ylabel=f"mean {loss} loss", title=f"{loss.capitalize()} loss (solid: train, dashed: dev)")
     if any_dev:
-        ax_acc.set_ylabel("dev accuracy")
-        ax_acc.set_title("Dev accuracy (ring: best epoch)")
+        ax_acc.set(ylabel="dev accuracy", title="Dev accuracy (ring: best epoch)")
     else:
-        _note(ax_acc, "no dev set")
-        ax_acc.set_title("Dev accuracy")
+        ax_acc.note("no dev set")
+        ax_acc.set(title="Dev accuracy")
     if any_lr:
-        ax_lr.set_yscale("log")
-        plain_log(ax_lr)
-        ax_lr.set_ylabel("learning rate in effect (log scale)")
+        ax_lr.set(yscale="log", ylabel="learning rate in effect (log scale)")
     else:
-        _note(ax_lr, "no learning rate recorded")
-    ax_lr.set_title("Learning rate")
+        ax_lr.note("no learning rate recorded")
+    ax_lr.set(title="Learning rate")
     for ax in grid[:len(losses) + 2]:
         if ax.has_data():
             _epoch_axis(ax, all_epochs)
-    for ax in grid[len(losses) + 2:]:
-        ax.set_visible(False)
-    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 4))
+    for k in range(len(losses) + 2, len(grid)):
+        fig.hide(k)
+    fig.legend_below(handles)
     return fig

@@ -77,23 +77,21 @@ def _figure(result):
     climbed = ok.copy()
     if result.stopped_by != "highest-rate-reached":
         climbed[-1] = False
-    ax.errorbar(rates[climbed], means[climbed], yerr=result.noise_multiple * errors[climbed], color=figures.SERIES[0],
-                marker="o", ms=4, capsize=2, lw=1.4, label="mean_loss per rung")
-    ax.axhline(result.untrained_loss, color=figures.MUTED, ls=":", lw=1.2, label="untrained_loss")
+    bar = result.noise_multiple * errors[climbed]
+    ax.errorbar(rates[climbed], means[climbed], means[climbed] - bar, means[climbed] + bar, figures.SERIES[0],
+                marker="o", size=6, width=1.4, label="mean_loss per rung")
+    ax.hline(result.untrained_loss, figures.MUTED, style=":", width=1.2, label="untrained_loss")
     if result.stopped_by != "highest-rate-reached":
         top = 1.1 * result.untrained_loss
         y = min(means[-1], top) if ok[-1] else top
-        ax.plot([rates[-1]], [y], linestyle="none", color=figures.SERIES[5], label="climb stopped", **figures.DIVERGED)
+        ax.markers([rates[-1]], [y], figures.SERIES[5], label="climb stopped", **figures.DIVERGED)
     if result.upper_bound is not None:
-        ax.axvline(result.upper_bound, color=figures.SERIES[1], ls="-", lw=1.2, label=f"upper_bound {rate_text(result.upper_bound)}")
-        ax.axvline(result.suggested_rate, color=figures.SERIES[1], ls="--", lw=1.4,
-                   label=f"suggested_rate {rate_text(result.suggested_rate)}")
+        ax.vline(result.upper_bound, figures.SERIES[1], width=1.2, label=f"upper_bound {rate_text(result.upper_bound)}")
+        ax.vline(result.suggested_rate, figures.SERIES[1], style="--", width=1.4,
+                 label=f"suggested_rate {rate_text(result.suggested_rate)}")
     finite = means[ok]
     low = min(finite.min(), result.untrained_loss) if finite.size else 0.0
-    ax.set_ylim(max(0.0, low - 0.15 * result.untrained_loss), 1.15 * result.untrained_loss)
-    ax.set_xscale("log")
-    figures.plain_log(ax, "x")
-    ax.set_xlabel("learning_rate")
-    ax.set_ylabel(f"mean_loss ({result.settings.get('loss')})")
-    ax.legend(fontsize=8)
+    ax.set(ylim=(max(0.0, low - 0.15 * result.untrained_loss), 1.15 * result.untrained_loss), xscale="log",
+           xlabel="learning_rate", ylabel=f"mean_loss ({result.settings.get('loss')})")
+    ax.legend(size=8)
     return fig

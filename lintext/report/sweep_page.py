@@ -16,6 +16,9 @@ import numpy as np
 
 from . import figures
 from .layout import figure_block, fmt, page, section, table
+from .svgdraw import blend
+
+VIRIDIS = ["#440154", "#3b528b", "#21918c", "#5ec962", "#fde725"]  # dark blue to yellow: larger rates lighter
 
 # Every column of sweep.csv, in order; the terminal and the page show SHOWN_COLUMNS.
 SWEEP_COLUMNS = ("run", "optimizer", "learning_rate", "status", "stop_metric", "stop_value", "dev_accuracy",
@@ -95,30 +98,38 @@ def sweep_page(result) -> str:
 
 
 def _metric_figure(result):
-    from matplotlib.ticker import FuncFormatter, MaxNLocator
-
     metric = result.stop_metric
     optimizers = result.settings.get("optimizers") or list(dict.fromkeys(r["optimizer"] for r in result.rows))
     rates = sorted({r["learning_rate"] for r in result.rows})
     fig, (ax,) = figures.new_figure(7.5, 4.0)  # x is log10(rate) on a linear axis: works up to float64's largest rate
+    diverged = []
     for k, name in enumerate(optimizers):
         colour = figures.SERIES[k % len(figures.SERIES)]
         runs = [r for r in result.rows if r["optimizer"] == name]
         ok = [r for r in runs if r["stop_value"] is not None]
-        ax.plot([math.log10(r["learning_rate"]) for r in ok], [r["stop_value"] for r in ok], "o-", ms=4, color=colour,
+        ax.line([math.log10(r["learning_rate"]) for r in ok], [r["stop_value"] for r in ok], colour, marker="o", size=6,
                 label=name)
         bad = [math.log10(r["learning_rate"]) for r in runs if r["diverged_epoch"] is not None]
-        if bad:  # drawn at the bottom edge: a diverged run has no dev value
-            ax.plot(bad, [0.03] * len(bad), color=colour, transform=ax.get_xaxis_transform(), clip_on=False,
-                    ls="none", label=f"{name}: diverged", **figures.DIVERGED)
+        if bad:
+            diverged.append((bad, colour, name))
+    values = [r["stop_value"] for r in result.rows if r["stop_value"] is not None]
+    if values:  # diverged runs have no dev value: their crosses sit on the bottom edge
+        lo, hi = min(values), max(values)
+        pad = 0.05 * (hi - lo) if hi > lo else (0.05 * abs(lo) or 0.5)
+        ax.set(ylim=(lo - 2 * pad, hi + pad))
+        edge = lo - 1.6 * pad
+    else:
+        ax.set(ylim=(0.0, 1.0))
+        edge = 0.03
+    for bad, colour, name in diverged:
+        ax.markers(bad, [edge] * len(bad), colour, label=f"{name}: diverged", **figures.DIVERGED)
     if result.best is not None:
         best = result.rows[result.best]
-        ax.plot([math.log10(best["learning_rate"])], [best["stop_value"]], ls="none", label="best run", **figures.BEST_RUN)
-    ax.set_xlim(math.log10(rates[0]) - 0.3, math.log10(rates[-1]) + 0.3)
-    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
-    ax.xaxis.set_major_formatter(FuncFormatter(_rate_tick))
-    ax.set_xlabel("learning rate (log scale)")
-    ax.set_ylabel(f"{METRIC_NAMES[metric]} at the best epoch")
+        ax.markers([math.log10(best["learning_rate"])], [best["stop_value"]], figures.GOLD, label="best run", **figures.BEST_RUN)
+    ax.set(xlim=(math.log10(rates[0]) - 0.3, math.log10(rates[-1]) + 0.3), xlabel="learning rate (log scale)",
+           ylabel=f"{METRIC_NAMES[metric]} at the best epoch")
+    ax.integer_x = True
+    ax.x_tick_text = _rate_tick
     ax.legend()
     return fig
 
@@ -129,15 +140,12 @@ def _rate_tick(exponent, _pos=None) -> str:
 
 
 def _curves_figure(result):
-    from matplotlib import colormaps
-    from matplotlib.ticker import FuncFormatter
-
     optimizers = result.settings.get("optimizers") or list(dict.fromkeys(r["optimizer"] for r in result.rows))
     if not any(h.get("dev_loss") is not None for hist in result.histories for h in hist):
         return None
     rates = sorted({r["learning_rate"] for r in result.rows})
     fig, axes = figures.new_figure(3.6 * len(optimizers) + 0.6, 3.4, len(optimizers), sharey=True)
-    shades = {rate: colormaps["viridis"](0.9 * i / max(1, len(rates) - 1)) for i, rate in enumerate(rates)}
+    shades = {rate: blend(VIRIDIS, 0.9 * i / max(1, len(rates) - 1)) for i, rate in enumerate(rates)}
     positive = all(h["dev_loss"] > 0 for hist in result.histories for h in hist if h.get("dev_loss") is not None)
     for ax, name in zip(axes, optimizers):
         for row, hist in zip(result.rows, result.histories):
@@ -146,19 +154,13 @@ def _curves_figure(result):
             epochs = [h["epoch"] for h in hist]
             values = [np.nan if h.get("dev_loss") is None else h["dev_loss"] for h in hist]
             colour = shades[row["learning_rate"]]
-            ax.plot(epochs, values, "-", color=colour, label=f"{row['learning_rate']:g}")
+            ax.line(epochs, values, colour, label=f"{row['learning_rate']:g}" if ax is axes[-1] else None)
             if row["diverged_epoch"] is not None:
-                ax.plot([row["diverged_epoch"]], [values[-1] if values else np.nan], color=colour, ls="none",
-                        **figures.DIVERGED)
+                ax.markers([row["diverged_epoch"]], [values[-1] if values else np.nan], colour, **figures.DIVERGED)
             elif row["best_epoch"]:
-                ax.plot([row["best_epoch"]], [values[row["best_epoch"] - 1]], color=colour, ls="none",
-                        **figures.BEST_EPOCH)
-        ax.set_title(name)
-        ax.set_xlabel("epoch")
-        if positive:
-            ax.set_yscale("log")
-            for axis in (ax.yaxis.set_major_formatter, ax.yaxis.set_minor_formatter):
-                axis(FuncFormatter(lambda v, _: f"{v:g}"))
-    axes[0].set_ylabel("dev loss")
+                ax.markers([row["best_epoch"]], [values[row["best_epoch"] - 1]], colour, **figures.BEST_EPOCH)
+        ax.set(title=name, xlabel="epoch", yscale="log" if positive else None)
+        ax.integer_x = True
+    axes[0].set(ylabel="dev loss")
     axes[-1].legend(title="learning rate")
     return fig

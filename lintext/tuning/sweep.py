@@ -140,7 +140,7 @@ class SweepResult:
             write_json(tmp / "sweep.json", self.to_json())
             atomic_file(tmp / "sweep.html", lambda fh: fh.write(sweep_page(self)))
             if self.model is not None:
-                from ..report.writer import write_report  # matplotlib loads only here
+                from ..report.writer import write_report
 
                 self.model.save(tmp / "best", extra=lambda folder: write_report(self.model, folder))
             elif keep:  # hard links where the file system has them: no copy of the weights
