@@ -78,10 +78,8 @@ def feature_table(model) -> dict:
     else:
         columns = np.arange(len(feat.feature_names), dtype=np.int64)
         names = list(feat.feature_names)
-    raw = weight_rows(model, columns)
-    mean = raw.mean(axis=1) if raw.size else np.zeros(len(columns))
-    coef = centred_rows(raw, mean)
-    best = coef.argmax(axis=1) if coef.size else np.zeros(0, dtype=np.int64)
+    summary = _row_summaries(model, columns)
+    best = summary["best"]
     df = df_all[columns]
     table = {
         "column": columns,
@@ -94,13 +92,43 @@ def feature_table(model) -> dict:
             table[name] = np.asarray(stats[name], dtype=np.float64)[columns]
         else:
             table[name] = np.full(len(columns), np.nan)
-    table["weight_norm"] = np.sqrt(np.einsum("ij,ij->i", coef, coef))
-    table["raw_weight_norm"] = np.sqrt(np.einsum("ij,ij->i", raw, raw))
-    table["weight_mean"] = mean
-    table["max_weight"] = coef[np.arange(len(columns)), best] if len(columns) else np.zeros(0)
+    table["weight_norm"] = summary["norm"]
+    table["raw_weight_norm"] = summary["raw_norm"]
+    table["weight_mean"] = summary["mean"]
+    table["max_weight"] = summary["max"]
     table["max_weight_label"] = np.array(list(model.labels) + [""], dtype=object)[best].tolist()
     table["frequency_bin"] = bin_index(df)
     return table
+
+
+BLOCK_ROWS = 8192  # rows of coef widened and centred at a time: a few MB, so the passes stay in cache
+
+
+def _row_blocks(model, columns):
+    """``(slice into columns, the rows' weights as float64)`` a block of rows at a time."""
+    for start in range(0, len(columns), BLOCK_ROWS):
+        part = slice(start, min(len(columns), start + BLOCK_ROWS))
+        yield part, weight_rows(model, columns[part])
+
+
+def _row_summaries(model, columns) -> dict:
+    """Per row of ``coef`` (the rows ``columns``): mean across labels, norms of the centred and raw
+    row, the centred row's largest weight and its label (``len(labels)`` for an empty model)."""
+    n, k = len(columns), model.coef.shape[1]
+    out = {"mean": np.zeros(n), "norm": np.zeros(n), "raw_norm": np.zeros(n), "max": np.zeros(n),
+           "best": np.full(n, k if k == 0 else 0, dtype=np.int64)}
+    if k == 0:
+        return out
+    for part, raw in _row_blocks(model, columns):
+        mean = raw.mean(axis=1)
+        coef = centred_rows(raw, mean)
+        best = coef.argmax(axis=1)
+        out["mean"][part] = mean
+        out["norm"][part] = np.sqrt(np.einsum("ij,ij->i", coef, coef))
+        out["raw_norm"][part] = np.sqrt(np.einsum("ij,ij->i", raw, raw))
+        out["best"][part] = best
+        out["max"][part] = coef[np.arange(len(best)), best]
+    return out
 
 
 def centred_rows(coef, mean=None) -> np.ndarray:
@@ -123,8 +151,10 @@ def weight_rows(model, columns) -> np.ndarray:
     and already float64); only the rows taken are widened (a hashing model uses few of its rows)."""
     coef = model.coef
     columns = np.asarray(columns, dtype=np.int64)
-    if len(columns) == coef.shape[0] and (len(columns) == 0 or (columns[0] == 0 and (np.diff(columns) == 1).all())):
-        return np.asarray(coef, dtype=np.float64)
+    if len(columns) and columns[-1] - columns[0] == len(columns) - 1 and (np.diff(columns) == 1).all():
+        if len(columns) == coef.shape[0]:
+            return np.asarray(coef, dtype=np.float64)
+        return np.asarray(coef[columns[0]:columns[-1] + 1], dtype=np.float64)  # a run of rows: a slice, no gather
     return np.asarray(coef[columns], dtype=np.float64)
 
 
@@ -205,13 +235,12 @@ def top_features(model, top: int = 10, label: str | None = None, table: dict | N
     ``weight_norm``), largest weight first.
     """
     table = feature_table(model) if table is None else table
-    coef = weight_rows(model, table["column"])
     wanted = model.labels if label is None else [label]
-    keys = size_key(centred_rows(coef, table["weight_mean"]))  # what each label's ranking sorts on
-    orders = largest_per_column(keys, table["column"], top, [model.labels.index(name) for name in wanted])
+    label_columns = [model.labels.index(name) for name in wanted]
+    orders = _largest_centred(model, table, top, label_columns)
     out = {}
-    for name, order in zip(wanted, orders):
-        weights = coef[order, model.labels.index(name)] - table["weight_mean"][order]  # only the rows shown
+    for name, j, order in zip(wanted, label_columns, orders):
+        weights = weight_rows(model, table["column"][order])[:, j] - table["weight_mean"][order]  # only the rows shown
         out[name] = [{
             "feature": table["feature"][i] or f"column {int(table['column'][i])}",
             "column": int(table["column"][i]),
@@ -222,27 +251,42 @@ def top_features(model, top: int = 10, label: str | None = None, table: dict | N
     return out
 
 
-def largest_per_column(values: np.ndarray, tiebreak: np.ndarray, top: int, columns: list) -> list[np.ndarray]:
-    """For each column ``j`` in ``columns``, the rows of its ``top`` largest values, largest first,
-    ties in ``tiebreak`` order: ``np.lexsort((tiebreak, -values[:, j]))[:top]`` for each.
+def _largest_centred(model, table, top: int, label_columns: list) -> list[np.ndarray]:
+    """For each label column ``j``, the table rows of the ``top`` largest centred weights, largest first,
+    ties in column order: ``np.lexsort((column, -size_key(centred[:, j])))[:top]``.
 
-    Sorting every column of a features x labels matrix costs seconds at 300,000 x 60; instead one
-    pass over the matrix keeps, per column, the values at least as large as the ``top``-th largest
-    of a sample of rows (a lower bound of the column's own ``top``-th largest, so no row of the
-    answer is dropped), and only those few are sorted. The result is the same, ties included.
+    Sorting every column of a features x labels matrix costs seconds at 300,000 x 60, and so does
+    widening, centring and rounding all of it. Instead a sample of rows gives, per label, a lower
+    bound of its ``top``-th largest key (the ``top``-th largest of the sample's); one pass over the
+    rows, a block at a time, keeps the weights within rounding of at least that bound, and only
+    those few are rounded and sorted. The result is the same, ties included.
     """
-    n = values.shape[0]
+    columns, mean = table["column"], table["weight_mean"]
+    n = len(columns)
     step = max(1, n // 20000)
-    if not columns or top >= len(range(0, n, step)) or np.isnan(values).any():  # few rows, or NaN: sort it all
-        return [np.lexsort((tiebreak, -values[:, j]))[:top] for j in columns]
-    every = list(columns) == list(range(values.shape[1]))
-    sample = values[::step] if every else values[::step, columns]
-    bound = np.partition(sample, sample.shape[0] - top, axis=0)[sample.shape[0] - top]
-    rows, which = np.nonzero((values if every else values[:, columns]) >= bound)
+    sample = np.arange(0, n, step)
+    if not label_columns:
+        return []
+    if top >= len(sample) or not np.isfinite(mean).all():  # few rows, or a NaN or infinite weight: sort it all
+        keys = size_key(centred_rows(weight_rows(model, columns), mean))
+        return [np.lexsort((columns, -keys[:, j]))[:top] for j in label_columns]
+    keys = size_key(weight_rows(model, columns[sample])[:, label_columns] - mean[sample, None])
+    bound = np.partition(keys, len(sample) - top, axis=0)[len(sample) - top]
+    # round(v, 12) >= bound needs v >= bound - 0.5e-12 up to a few ulps of v (rint(v * 1e12) / 1e12)
+    floor = bound - 1e-12 - 8 * np.finfo(np.float64).eps * np.abs(bound)
+    every = label_columns == list(range(model.coef.shape[1]))
+    rows, which = [], []
+    for part, raw in _row_blocks(model, columns):
+        centred = (raw if every else raw[:, label_columns]) - mean[part, None]
+        r, w = np.nonzero(centred >= floor)
+        rows.append(r + part.start)
+        which.append(w)
+    rows, which = np.concatenate(rows), np.concatenate(which)
     out = []
-    for k, j in enumerate(columns):
+    for k, j in enumerate(label_columns):
         keep = rows[which == k]
-        out.append(keep[np.lexsort((tiebreak[keep], -values[keep, j]))][:top])
+        key = size_key(weight_rows(model, columns[keep])[:, j] - mean[keep])
+        out.append(keep[np.lexsort((columns[keep], -key))][:top])
     return out
 
 

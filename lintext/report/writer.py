@@ -75,7 +75,7 @@ def _float_cells(values: np.ndarray) -> list[str]:
     whole = finite & (np.trunc(values) == values) & (np.abs(values) < 2.0**53)
     if whole.all():
         return list(map(str, values.astype(np.int64).tolist()))
-    cells = np.array(list(map(repr, values.tolist())), dtype=object)
+    cells = np.array(list(map(float.__repr__, values.tolist())), dtype=object)  # repr, without the builtin's dispatch
     if whole.any():
         cells[whole] = np.array(list(map(str, values[whole].astype(np.int64).tolist())), dtype=object)
     cells[~finite] = ""

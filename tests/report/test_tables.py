@@ -12,12 +12,13 @@ import csv
 import io
 import math
 import struct
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
 
 from lintext.files import csv_value
-from lintext.report.stats import bin_label, largest_per_column
+from lintext.report.stats import _largest_centred, bin_label, centred_rows, size_key
 from lintext.report.writer import CSV_COLUMNS, csv_cells, write_features_csv
 
 # Floats whose text is easy to get wrong: whole floats (written as integers below 2**53, as repr
@@ -105,24 +106,36 @@ def test_csv_cells_quote_a_carriage_return_so_it_reads_back():
     assert next(csv.reader(io.StringIO(",".join(cells) + "\n", newline=""))) == ["a\rb", "c"]
 
 
-@pytest.mark.parametrize("n, labels, top", [(50_000, 7, 10), (3_000, 4, 25), (30, 3, 10), (45_000, 2, 1)])
-def test_largest_per_column_equals_a_full_sort(n, labels, top):
-    rng = np.random.default_rng(n)
-    values = rng.integers(-40, 40, size=(n, labels)).astype(np.float64)  # many ties at every threshold
-    values[rng.integers(0, n, 20), rng.integers(0, labels, 20)] = np.inf
-    tiebreak = rng.permutation(n).astype(np.int64)
-    got = largest_per_column(values, tiebreak, top, list(range(labels)))
+def ranking_case(n, labels, scale, seed):
+    """A model-like object whose float32 weights tie at every threshold, and its feature table's columns."""
+    rng = np.random.default_rng(seed)
+    coef = (rng.integers(-40, 40, size=(n, labels)) * scale).astype(np.float32)  # many ties at every threshold
+    coef[rng.integers(0, n, 30)] += np.float32(scale) / 3  # whole rows shifted: centred ties differ in their last bits
+    model = SimpleNamespace(coef=coef, labels=[f"l{j}" for j in range(labels)])
+    table = {"column": rng.permutation(n).astype(np.int64)}  # a tie-break order that is not the row order
+    table["weight_mean"] = coef[table["column"]].astype(np.float64).mean(axis=1)
+    return model, table
+
+
+@pytest.mark.parametrize("n, labels, top, scale", [(50_000, 7, 10, 1.0), (3_000, 4, 25, 0.125), (30, 3, 10, 1.0),
+                                                    (45_000, 2, 1, 1.0), (40_000, 5, 10, 4096.0)])
+def test_largest_centred_weights_equal_a_full_sort(n, labels, top, scale):
+    model, table = ranking_case(n, labels, scale, n)
+    keys = size_key(centred_rows(model.coef[table["column"]], table["weight_mean"]))
+    got = _largest_centred(model, table, top, list(range(labels)))
     for j in range(labels):
-        expected = np.lexsort((tiebreak, -values[:, j]))[:top]  # NumPy: sort the whole column
+        expected = np.lexsort((table["column"], -keys[:, j]))[:top]  # NumPy: sort the whole column
         assert got[j].tolist() == expected.tolist()
-    one = largest_per_column(values, tiebreak, top, [labels - 1])
-    assert one[0].tolist() == np.lexsort((tiebreak, -values[:, labels - 1]))[:top].tolist()
+    one = _largest_centred(model, table, top, [labels - 1])
+    assert one[0].tolist() == np.lexsort((table["column"], -keys[:, labels - 1]))[:top].tolist()
 
 
-def test_largest_per_column_with_nan_sorts_everything():
-    values = np.array([[np.nan, 1.0], [2.0, np.nan], [0.5, 0.5]])
-    got = largest_per_column(values, np.arange(3), 2, [0, 1])
-    assert [g.tolist() for g in got] == [np.lexsort((np.arange(3), -values[:, j]))[:2].tolist() for j in (0, 1)]
+def test_largest_centred_weights_with_nan_sorts_everything():
+    model = SimpleNamespace(coef=np.array([[np.nan, 1.0], [2.0, 0.0], [0.5, 0.5]], dtype=np.float32), labels=["a", "b"])
+    table = {"column": np.arange(3), "weight_mean": model.coef.astype(np.float64).mean(axis=1)}
+    keys = size_key(centred_rows(model.coef, table["weight_mean"]))
+    got = _largest_centred(model, table, 2, [0, 1])
+    assert [g.tolist() for g in got] == [np.lexsort((np.arange(3), -keys[:, j]))[:2].tolist() for j in (0, 1)]
 
 
 def test_weight_rows_widens_only_the_rows_it_takes():
@@ -130,7 +143,6 @@ def test_weight_rows_widens_only_the_rows_it_takes():
     # (``coef.astype(float64)[columns]``); the rows taken must be those, bit for bit, while the
     # memory used stays near their size (80 KB), far below a float64 copy of every row (16 MB).
     import tracemalloc
-    from types import SimpleNamespace
 
     from lintext.report.stats import weight_rows
 
