@@ -153,7 +153,7 @@ def _explanations(model, data, texts, reader, top, chunk_size) -> Iterator[dict]
 
 
 def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_FEATURES,
-               texts_of: Callable[[list], list] | None = None) -> dict:
+               texts_of: Callable[[list], list] | None = None, scores: np.ndarray | None = None) -> dict:
     """The dev documents the model gets wrong, most confident first, JSON-ready.
 
     Parameters
@@ -163,6 +163,7 @@ def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_
     keep : how many errors to keep; features : contributions kept per error.
     texts_of : the texts of the rows shown, given their row numbers (default: ``corpus.texts``; a
         feature store reads them back from its source).
+    scores : ``model.matrix_scores(X)`` when already computed.
 
     Returns
     -------
@@ -176,7 +177,7 @@ def dev_errors(model, corpus, X, keep: int = ERRORS_KEPT, features: int = ERROR_
     """
     X = X.tocsr()
     y = corpus.label_indices(model.labels)
-    scores = model.matrix_scores(X)
+    scores = model.matrix_scores(X) if scores is None else scores
     predicted = scores.argmax(axis=1)
     wrong = np.flatnonzero(predicted != y)
     if model.has_probabilities:

@@ -1,8 +1,8 @@
 """The main job end to end: read, split, featurize, train, evaluate.
 
 :func:`build_model` is the Python entry point behind ``lintext train``; :func:`evaluate`
-behind ``lintext evaluate``; :func:`prediction_rows` behind ``lintext predict``. None
-prints: progress goes to the callable given, as dictionaries (:data:`Progress`).
+behind ``lintext evaluate`` (:func:`lintext.predictions.prediction_rows` behind ``lintext predict``).
+None prints: progress goes to the callable given, as dictionaries (:data:`Progress`).
 """
 
 from __future__ import annotations
@@ -10,7 +10,6 @@ from __future__ import annotations
 import os
 import time
 from dataclasses import dataclass, replace
-from itertools import islice
 from typing import Callable
 
 import numpy as np
@@ -25,10 +24,10 @@ from .errors import ConfigError, InputError
 from .evidence import training_extras
 from .explanation import dev_errors, require_calibration
 from .from_store import (StorePart, dev_sample, is_store_data, store_data, store_dev_errors, store_evaluation,
-                         store_evidence, store_score_rows)
+                         store_evidence)
 from .model import Model, stored_weights
 from .text.featurizer import Featurizer, FeaturizerConfig
-from .text.readers import Corpus, ReaderOptions, iter_chunks, read_corpus
+from .text.readers import Corpus, ReaderOptions, read_corpus
 from .text.split import split_dev
 from .text.store import FeatureStore
 
@@ -111,7 +110,7 @@ def prepare_data(data, dev=None, dev_fraction: float = 0.1, featurizer: Featuriz
         return PreparedData(**fields)
     fconfig = featurizer_config(featurizer)
     dev_fraction = check_dev_fraction(dev_fraction, dev)
-    report({"stage": "reading", "path": str(data) if _is_path(data) else getattr(data, "path", "in-memory data")})
+    report({"stage": "reading", "path": str(data) if is_path(data) else getattr(data, "path", "in-memory data")})
     corpus = as_corpus(data, reader=reader)
     if dev is not None:
         train_set = corpus
@@ -238,19 +237,22 @@ def finish_with_dev(model: Model, prep: PreparedData) -> None:
     X_dev, y_dev = prep.X_dev, prep.y_dev
     if isinstance(prep.dev_set, StorePart):  # its first shard: all of it, or a random sample (bounded memory)
         X_dev, y_dev = dev_sample(prep.dev_set, prep.labels)
-    model.calibration = confidence.calibration_record(model.matrix_scores(X_dev), y_dev)
+    raw = model.matrix_scores(X_dev)  # scored once: the dev rows are featurized already
+    model.calibration = confidence.calibration_record(raw, y_dev)
     if isinstance(prep.dev_set, StorePart):
         model.info["dev_errors"] = store_dev_errors(model, prep.dev_set, X_dev, y_dev)
+        model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
     else:
-        model.info["dev_errors"] = dev_errors(model, prep.dev_set, X_dev)
-    model.info["metrics"]["dev"] = evaluate(model, prep.dev_set)
+        model.info["dev_errors"] = dev_errors(model, prep.dev_set, X_dev, scores=raw)
+        model.info["metrics"]["dev"] = evaluate(model, prep.dev_set, scores=raw)
 
 
 UNKNOWN_LABELS = ("count", "skip")
 
 
 def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: ReaderOptions | None = None,
-             summary_only: bool = False, target_accuracy: float | None = None, unknown_labels: str = "count") -> dict:
+             summary_only: bool = False, target_accuracy: float | None = None, unknown_labels: str = "count",
+             scores: np.ndarray | None = None) -> dict:
     """Accuracy, macro- and weighted-F1, per-label precision/recall/F1/support and the confusion
     matrix; then calibration and routing numbers.
 
@@ -268,6 +270,8 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
         decided documents reach that accuracy.
     unknown_labels : what to do with documents whose label the model never saw: ``"count"``
         them as errors (their label joins the averages with recall 0 and F1 0) or ``"skip"`` them.
+    scores : the model's scores of ``data``'s documents (one row per document, in order) when they are
+        at hand: used instead of featurizing and scoring the texts again (not for a feature store).
 
     Returns
     -------
@@ -297,14 +301,18 @@ def evaluate(model: Model, data: str | os.PathLike | Corpus | tuple, reader: Rea
         for label in corpus.labels:
             if label not in known:
                 unknown_counts[label] = unknown_counts.get(label, 0) + 1
+        if scores is not None and len(scores) != len(corpus):
+            raise ValueError(f"scores has {len(scores)} rows for {len(corpus)} documents")
         if unknown_counts and unknown_labels == "skip":
-            corpus = corpus.subset([i for i, label in enumerate(corpus.labels) if label in known])
+            kept = [i for i, label in enumerate(corpus.labels) if label in known]
+            corpus = corpus.subset(kept)
+            scores = None if scores is None else np.asarray(scores)[kept]
             if len(corpus) == 0:
                 raise InputError(corpus.path, "no document has a label the model knows "
                                  f"(the model's labels: {', '.join(model.labels)})")
         names = list(model.labels) + ([] if unknown_labels == "skip" else sorted(unknown_counts))
         y_true = corpus.label_indices(names)
-        raw_scores = model.scores(corpus.texts)
+        raw_scores = model.scores(corpus.texts) if scores is None else np.asarray(scores, dtype=np.float64)
         y_pred = raw_scores.argmax(axis=1)
         empty = count_empty(corpus.texts)
     counts = confusion_counts(y_true, y_pred, len(names))
@@ -350,73 +358,6 @@ def count_empty(texts) -> int:
     return sum(1 for text in texts if not text.strip())
 
 
-def prediction_rows(model: Model, data, top_labels: int = 1, chunk_size: int = 20000, reader: ReaderOptions | None = None,
-                    min_probability: float | None = None, counts: dict | None = None):
-    """Yield a CSV header and then one row per input record, streaming in chunks.
-
-    Columns: ``row`` (the record's number in the input, from 1), ``id`` (with
-    ``reader.id_column``: that column's value), ``label``, and ``probability`` (calibrated when
-    the model has a calibration) or ``score`` (a hinge model without one); with ``top_labels`` > 1
-    also ``label_2``, ``probability_2`` ... up to ``top_labels``. Labels are ranked by score, so a
-    calibration never changes them. With ``min_probability`` (needs a calibrated model) a row whose
-    best probability is below it gets an empty ``label`` and ``yes`` in a last column, ``review``
-    (``no`` for the rows decided). ``data``: a file, folder or ``-`` (standard input), a Corpus or
-    a list of texts. ``counts``, when given, is filled with ``documents`` and ``empty_texts``.
-    """
-    top = top_labels
-    if not 1 <= top <= len(model.labels):
-        raise ConfigError("--top-labels", top, f"must be between 1 and the number of labels ({len(model.labels)})")
-    if min_probability is not None:
-        confidence.check_probability("--min-probability", min_probability)
-        require_calibration(model, "--min-probability")
-    value = "probability" if model.has_probabilities else "score"
-    with_id = reader is not None and reader.id_column is not None
-    header = ["row"] + (["id"] if with_id else []) + ["label", value]
-    for k in range(2, top + 1):
-        header += [f"label_{k}", f"{value}_{k}"]
-    if min_probability is not None:
-        header.append("review")
-    counts = {} if counts is None else counts
-    counts.update(documents=0, empty_texts=0)
-    yield header
-    row = 0
-    for chunk, numbers, scores in _scored_chunks(model, data, chunk_size, reader):
-        counts["documents"] += len(scores)
-        counts["empty_texts"] += 0 if chunk is None else count_empty(chunk.texts)
-        best = np.argsort(-scores, axis=1, kind="stable")[:, :top]
-        if model.has_probabilities:
-            scores = model.probabilities_of(scores)
-        for i in range(len(scores)):
-            row += 1
-            number = row if numbers is None else numbers[i] + 1
-            out = [number, chunk.ids[i] if chunk is not None and chunk.ids is not None else ""] if with_id else [number]
-            for j in best[i]:
-                out += [model.labels[j], f"{scores[i, j]:.6g}"]
-            if min_probability is not None:
-                unsure = scores[i, best[i, 0]] < min_probability
-                if unsure:
-                    out[2 if with_id else 1] = ""
-                out.append("yes" if unsure else "no")
-            yield out
-
-
-def _scored_chunks(model, data, chunk_size, reader):
-    """(chunk or None, record numbers or None, scores) of consecutive records: texts read in chunks, or a
-    store's rows (in record order)."""
-    if not is_store_data(data):
-        chunks = iter_chunks(data, chunk_size=chunk_size, reader=reader) if _is_path(data) else \
-            [as_corpus(data, reader=reader, require_labels=False)]
-        for chunk in chunks:
-            yield chunk, None, model.scores(chunk.texts)
-        return
-    rows = iter(store_score_rows(model, data))
-    while True:
-        batch = list(islice(rows, chunk_size))
-        if not batch:
-            return
-        yield None, [r for r, _ in batch], np.vstack([s for _, s in batch])
-
-
 def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels: int = 2,
               require_labels: bool = True) -> Corpus:
     """A :class:`Corpus` from a file or folder, a Corpus, a ``(texts, labels)`` pair or a list of texts.
@@ -426,7 +367,7 @@ def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels
     """
     if isinstance(data, Corpus):
         return data
-    if _is_path(data):
+    if is_path(data):
         return read_corpus(data, reader, require_labels=require_labels, min_labels=min_labels)
     if labels is None and isinstance(data, tuple) and len(data) == 2 and not isinstance(data[0], str):
         data, labels = data
@@ -440,7 +381,7 @@ def as_corpus(data, labels=None, reader: ReaderOptions | None = None, min_labels
     return corpus
 
 
-def _is_path(data) -> bool:
+def is_path(data) -> bool:
     return isinstance(data, (str, os.PathLike))
 
 

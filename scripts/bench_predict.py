@@ -42,7 +42,7 @@ import sys, time, json
 t0 = time.perf_counter()
 from lintext.cli import app  # what `lintext` imports first
 from lintext.model import open_model
-from lintext.pipeline import prediction_rows
+from lintext.predictions import prediction_rows
 from lintext.text.featurizer import Featurizer
 t1 = time.perf_counter()
 folder, data = sys.argv[1], sys.argv[2]

@@ -17,7 +17,7 @@ LAYERS = [
     {"lintext", "errors", "files", "outputs", "resources", "arrays"},
     {"text", "engine"},
     {"model", "model_check", "model_tables", "confidence"},
-    {"evidence", "explanation", "pipeline", "from_store"},
+    {"evidence", "explanation", "pipeline", "from_store", "predictions"},
     {"report"},
     {"tuning"},
     {"estimator"},

@@ -208,3 +208,27 @@ def test_refit_keeps_the_first_pass_dev_record_and_saves_the_second_pass_weights
     assert not np.allclose(refit.coef, once.coef)
     loaded = Model.load(refit.save(tmp_path / "m"))
     assert loaded.info["refit"] == refit.info["refit"]
+
+
+def test_dev_metrics_from_the_scores_at_hand_equal_a_fresh_evaluation(tmp_path):
+    # The dev set is scored once after training (its rows are featurized already); the record must
+    # be what evaluating the dev file from its texts gives, field for field. And evaluate's
+    # ``scores`` (the same rows' scores) stands in for featurizing, with unknown labels skipped too.
+    from lintext.pipeline import evaluate
+    from lintext.text.readers import Corpus
+
+    from .conftest import small_corpus_rows, write_csv
+
+    rows = small_corpus_rows(80)
+    train, dev = write_csv(tmp_path / "train.csv", rows[:60]), write_csv(tmp_path / "dev.csv", rows[60:])
+    model = lintext.build_model(train, dev=dev, options={"epochs": 6, "refit": False, "loss": "softmax"})
+    fresh = evaluate(model, dev)
+    assert model.info["metrics"]["dev"] == fresh and fresh["documents"] == len(rows) - 60
+    texts = [t for t, _ in rows[60:]]
+    labels = [lab if i % 5 else "never-seen" for i, (_, lab) in enumerate(rows[60:])]
+    corpus = Corpus(texts, labels, [f"m:{i}" for i in range(len(texts))])
+    for how in ("count", "skip"):
+        assert evaluate(model, corpus, unknown_labels=how, scores=model.scores(texts)) == \
+            evaluate(model, corpus, unknown_labels=how)
+    with pytest.raises(ValueError, match=f"3 rows for {len(texts)} documents"):
+        evaluate(model, corpus, scores=model.scores(texts[:3]))

@@ -106,7 +106,7 @@ def predict(
     from ..files import atomic_file
     from ..model import open_model
     from ..outputs import check_output_file
-    from ..pipeline import prediction_rows
+    from ..predictions import prediction_rows
 
     if out_file is not None:
         check_output_file(out_file, "predictions", force, inputs=[data, model_dir])

@@ -23,7 +23,8 @@ from lintext.engine.options import TrainOptions
 from lintext.engine.trainer import fit
 from lintext.errors import ConfigError, InputError
 from lintext.from_store import featurize, rows_of
-from lintext.pipeline import build_model, evaluate, prediction_rows, prepare_data
+from lintext.pipeline import build_model, evaluate, prepare_data
+from lintext.predictions import prediction_rows
 from lintext.text.config import FeaturizerConfig
 from lintext.text.readers import read_corpus
 from lintext.text.split import dev_mask, split_dev
