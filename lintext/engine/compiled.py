@@ -115,6 +115,13 @@ PREFETCH_MAX_EXAMPLES = 32
 # Rows ahead whose optimizer state a batch's update prefetches (the state is read only there).
 STATE_AHEAD = 8
 
+# What apply_rows adds to ``avg_sum`` for a row it steps (iterate averaging; see lintext.engine.state).
+ADD_NOTHING = 0
+ADD_WEIGHTS = 1  # the row's new weights: avg_sum is the sum of the iterates
+ADD_STEPS = 2  # t * (its change): avg_sum is the step-weighted sum of the changes, only where they moved
+# No step reaches it: prepare_batch then leaves every gap at zero.
+NO_STEP = 2**62
+
 # What a missed step does to an absent row (see lintext.engine.kernels).
 CATCH_UP_NONE = 0  # nothing (SGD and AdaGrad without L2; dense mode)
 CATCH_UP_WEIGHTS = 1  # L2 shrinkage of the weights (SGD, AdaGrad with L2): uses the epoch's step sizes
@@ -275,9 +282,14 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
 
     Averaging (``avg_sum`` has rows) adds to a row's sums, outside its rule's loop, first the
     weights of its ``average_gap[s]`` missed steps (left here by :func:`prepare_batch` when
-    the catch-up did not move them), then, with ``add_to_average``, its new weights (without
-    it, :func:`average_rows` adds them after the L1 penalty): the same additions in the same
-    order as when they were passes of their own, made while the row is in the cache.
+    the catch-up did not move them), then, with ``add_to_average == ADD_WEIGHTS``, its new weights
+    (without it, :func:`average_rows` adds them after the L1 penalty): the same additions in the
+    same order as when they were passes of their own, made while the row is in the cache. With
+    ``add_to_average == ADD_STEPS`` (SGD and AdaGrad without L1 or L2, averaged from the first step;
+    :func:`lintext.engine.kernels.averages_by_steps`) it adds ``t * (w_after - w_before)`` instead,
+    ``t = mark - 1`` the step, and only to the weights that moved: the sum of the iterates is then
+    ``T * w - avg_sum`` after ``T`` steps (:meth:`lintext.engine.state.KernelState.weight_sum`), and a
+    hinge batch, which moves two labels per example, touches two of a row's sums, not all of them.
 
     Meanwhile it prefetches the weights of the rows ``upcoming[:n_up]`` (the next batch's),
     spread evenly over its rows: all at once, the prefetches would queue for the memory system
@@ -302,6 +314,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     a1 = 1.0 - beta1
     a2 = 1.0 - beta2
     line = max(1, 64 // params.itemsize)
+    t_step = float(mark - 1)  # the step (ADD_STEPS runs lazy: mark = t + 1)
     fetched = 0
     owed = 0  # n_up prefetches spread over hi - lo rows, without a division per row
     ahead = STATE_AHEAD
@@ -313,7 +326,8 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             prefetch_row(second_moment, jf, line)
             prefetch_row(avg_sq_update, jf, line)
             prefetch_row(shifted_grad_sum, jf, line)
-            prefetch_row(avg_sum, jf, 8)  # float64 whatever the weights' precision
+            if add_to_average != ADD_STEPS or n_active == n_labels:  # by steps, a hinge batch moves few of them
+                prefetch_row(avg_sum, jf, 8)  # float64 whatever the weights' precision
         if s < lo:
             continue
         owed += n_up
@@ -349,20 +363,22 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     sum_sq_grad[j, c] = acc
                     params[j, c] = w - lr * gc / (np.sqrt(acc) + epsilon)
                 nonzero += gc != 0.0
-                moved[k] = abs(params[j, c] - w)
+                moved[k] = params[j, c] - w
+                if add_to_average == ADD_STEPS and gc != 0.0:  # a zero gradient moved nothing
+                    avg_sum[j, c] += t_step * moved[k]
             if nonzero > 0:
                 info[j, STAT_COUNT] += 1
                 s0 = 0.0
                 s1 = 0.0
                 for k in range(0, n_active - 1, 2):
-                    s0 += moved[k]
-                    s1 += moved[k + 1]
+                    s0 += abs(moved[k])
+                    s1 += abs(moved[k + 1])
                 if n_active % 2 == 1:
-                    s0 += moved[n_active - 1]
+                    s0 += abs(moved[n_active - 1])
                 info_f[j, STAT_SUM] += s0 + s1
             if mark >= 0:
                 info[j, LAST] = mark
-            if add_to_average:
+            if add_to_average == ADD_WEIGHTS:
                 for l in range(n_labels):
                     avg_sum[j, l] += params[j, l]
             continue
@@ -387,13 +403,13 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     w = params[j, l] * 1.0
                     params[j, l] = (w - lr * g[l]) / shrink
                     nonzero += g[l] != 0.0
-                    moved[l] = abs(params[j, l] - w)
+                    moved[l] = params[j, l] - w
             else:
                 for l in range(n_labels):
                     w = params[j, l] * 1.0
                     params[j, l] = w - lr * g[l]
                     nonzero += g[l] != 0.0
-                    moved[l] = abs(params[j, l] - w)
+                    moved[l] = params[j, l] - w
         elif opt_code == ADAGRAD:
             if reg > 0.0:
                 for l in range(n_labels):
@@ -403,7 +419,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     eta = lr / (np.sqrt(acc) + epsilon)
                     params[j, l] = (w - eta * g[l]) / (1.0 + eta * reg)
                     nonzero += g[l] != 0.0
-                    moved[l] = abs(params[j, l] - w)
+                    moved[l] = params[j, l] - w
             else:
                 for l in range(n_labels):
                     w = params[j, l] * 1.0
@@ -411,7 +427,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     sum_sq_grad[j, l] = acc
                     params[j, l] = w - lr * g[l] / (np.sqrt(acc) + epsilon)
                     nonzero += g[l] != 0.0
-                    moved[l] = abs(params[j, l] - w)
+                    moved[l] = params[j, l] - w
         elif opt_code == RMSPROP:
             f = decay1[s]
             for l in range(n_labels):
@@ -421,7 +437,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 second_moment[j, l] = v
                 params[j, l] = w - lr * gg / (np.sqrt(v) + epsilon)
                 nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
+                moved[l] = params[j, l] - w
         elif opt_code == ADADELTA:
             f = decay1[s]
             for l in range(n_labels):
@@ -434,7 +450,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 avg_sq_update[j, l] = rho * old + ar * dx * dx
                 params[j, l] = w + lr * dx
                 nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
+                moved[l] = params[j, l] - w
         elif opt_code == ADAM:
             f1 = decay1[s]
             f2 = decay2[s]
@@ -460,7 +476,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 second_moment[j, l] = v
                 params[j, l] = w - step * m1 / (np.sqrt(v) + eps)
                 nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
+                moved[l] = params[j, l] - w
         elif opt_code == FTRL:
             pen = 0.0 if j == bias else l1
             lam2 = reg
@@ -477,7 +493,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 else:
                     params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
                 nonzero += g[l] != 0.0
-                moved[l] = abs(params[j, l] - w)
+                moved[l] = params[j, l] - w
         if nonzero > 0:
             info[j, STAT_COUNT] += 1
             # |dw| summed as four interleaved partial sums combined (s0 + s1) + (s2 + s3): a
@@ -488,20 +504,23 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             s3 = 0.0
             l = 0
             while l + 4 <= n_labels:
-                s0 += moved[l]
-                s1 += moved[l + 1]
-                s2 += moved[l + 2]
-                s3 += moved[l + 3]
+                s0 += abs(moved[l])
+                s1 += abs(moved[l + 1])
+                s2 += abs(moved[l + 2])
+                s3 += abs(moved[l + 3])
                 l += 4
             while l < n_labels:
-                s0 += moved[l]
+                s0 += abs(moved[l])
                 l += 1
             info_f[j, STAT_SUM] += (s0 + s1) + (s2 + s3)
         if mark >= 0:
             info[j, LAST] = mark
-        if add_to_average:  # averaging: the row's new weights (else average_rows, after the L1 penalty)
+        if add_to_average == ADD_WEIGHTS:  # averaging: the row's new weights (else average_rows, after L1)
             for l in range(n_labels):
                 avg_sum[j, l] += params[j, l]
+        elif add_to_average == ADD_STEPS:
+            for l in range(n_labels):
+                avg_sum[j, l] += t_step * moved[l]
 
 
 @njit(**NO_REFCOUNT)
@@ -837,11 +856,12 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
                  powers, scores, dscores, example_loss, touched, missed, decays, row_start,
                  entry_row, entry_example, entry_value, upcoming, active, scratch, example_weight,
                  l1, l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from,
-                 average_gap):
+                 average_gap, by_steps):
     """Run the batches of one epoch on this thread; see :mod:`lintext.engine.kernels`, which also
     allocates the work space and ends the epoch (flush). Returns ``(loss_sum, new_step, finite)``.
     ``l1_total[b]`` is the cumulative L1 penalty after the epoch's step ``b`` (empty: no L1);
-    steps from ``avg_from`` on add their weights to ``avg_sum`` (no rows: no averaging).
+    steps from ``avg_from`` on add their weights to ``avg_sum`` (no rows: no averaging), or, with
+    ``by_steps``, their step-weighted changes (``ADD_STEPS``; missed steps then add nothing).
 
     Precondition: every ``last_step`` is at most ``step``, and a row with ``last_step < step``
     owes only the decay of a decaying rule (caught up on its next touch).
@@ -851,6 +871,7 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
     prefetching = upcoming.shape[0] > 0
     averaging = avg_sum.shape[0] > 0
     penalised = l1_total.shape[0] > 0
+    gap_from = NO_STEP if by_steps else avg_from  # by steps, a missed step adds nothing
     loss_sum = 0.0
     for b in range(n_batches):
         t = step + b
@@ -862,7 +883,7 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
         n_touched, n_up = prepare_batch(
             indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2,
             beta1, beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays,
-            row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums, avg_sum, avg_from,
+            row_start, entry_row, entry_example, entry_value, upcoming, ahead, shrink_sums, avg_sum, gap_from,
             average_gap)
         score_examples(indptr, indices, data, y, order, start, start, stop, params, loss_code,
                        1.0 / n_ex, scores, dscores, example_loss, example_weight)
@@ -878,7 +899,9 @@ def epoch_kernel(indptr, indices, data, y, order, params, sum_sq_grad, first_mom
         loss_sum += total
         n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
         mark = t + 1 if lazy else -1
-        add_now = averaging and t >= avg_from and not penalised  # with L1: after the penalty
+        add_now = ADD_NOTHING
+        if averaging and t >= avg_from and not penalised:  # with L1: after the penalty (average_rows)
+            add_now = ADD_STEPS if by_steps else ADD_WEIGHTS
         apply_rows(0, n_touched, touched, decays[0], decays[1], row_start, entry_example, entry_value,
                    dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment, second_moment,
                    avg_sq_update, info, info_f, beta1, beta2, rho, epsilon, mark,
@@ -898,7 +921,7 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
                       powers, scores, dscores, example_loss, touched, missed, decays, row_start,
                       entry_row, entry_example, entry_value, upcoming, active, example_weight, l1,
                       l1_total, l1_applied, shifted_grad_sum, ftrl_beta, shrink_sums, avg_sum, avg_from,
-                      average_gap, n_threads):
+                      average_gap, by_steps, n_threads):
     """Batch ``b`` of :func:`epoch_kernel`, with its scoring split over its examples and its
     update over its rows on ``n_threads`` threads (the same results, bit for bit). Returns
     ``(loss_sum, finite)``."""
@@ -908,10 +931,11 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
     stop = min(n, start + batch_size)
     n_ex = stop - start
     lr = schedule_lr(schedule_code, lr0, decay, t)
+    gap_from = NO_STEP if by_steps else avg_from  # by steps, a missed step adds nothing
     n_touched, _ = prepare_batch(
         indptr, indices, data, order, start, stop, t, step, kind, cum, powers, opt_code, lr, l2, beta1,
         beta2, rho, epsilon, params, sum_sq_grad, info, lazy, touched, missed, decays, row_start,
-        entry_row, entry_example, entry_value, upcoming, stop, shrink_sums, avg_sum, avg_from, average_gap)
+        entry_row, entry_example, entry_value, upcoming, stop, shrink_sums, avg_sum, gap_from, average_gap)
     score_examples_parallel(indptr, indices, data, y, order, start, stop, params, loss_code,
                             1.0 / n_ex, scores, dscores, example_loss, example_weight, min(n_ex, 4 * n_threads))
     total = 0.0
@@ -926,7 +950,9 @@ def run_batch_threads(b, indptr, indices, data, y, order, params, sum_sq_grad, f
     n_active = active_labels(loss_code, opt_code, dscores, n_ex, active)
     mark = t + 1 if lazy else -1
     penalised = l1_total.shape[0] > 0
-    add_now = avg_sum.shape[0] > 0 and t >= avg_from and not penalised  # with L1: after the penalty
+    add_now = ADD_NOTHING
+    if avg_sum.shape[0] > 0 and t >= avg_from and not penalised:  # with L1: after the penalty (average_rows)
+        add_now = ADD_STEPS if by_steps else ADD_WEIGHTS
     apply_rows_parallel(n_touched, touched, decays[0], decays[1], row_start, entry_example,
                         entry_value, dscores, opt_code, lr, l2, params, sum_sq_grad, first_moment,
                         second_moment, avg_sq_update, info, info_f, beta1, beta2, rho, epsilon,

@@ -102,7 +102,7 @@ from .compiled import (
 from .numba_setup import Threads, max_threads, resolve_threads
 from .optimizers import ADAGRAD, ADAM, FTRL, SGD
 from .schedules import SCHEDULE_INVERSE, SCHEDULE_INVERSE_SQRT, schedule_learning_rate
-from .state import KernelState
+from .state import KernelState, averages_by_steps
 
 __all__ = ["KernelState", "Rows", "Settings", "WorkSpace", "all_finite", "decision_scores", "flush", "max_threads",
            "resolve_threads", "run_epoch", "schedule_lr"]
@@ -256,6 +256,10 @@ def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, lo
         raise ValueError("SGD with L1 needs KernelState.new(..., l1=True)")
     averaging = state.avg_sum.shape[0] > 0
     flush = flush or averaging  # every epoch ends current: the average is read after each
+    by_steps = averaging and averages_by_steps(optimizer_code, bool(lazy), float(l2), float(l1), int(avg_from))
+    if state.step > 0 and averaging and state.average_steps != by_steps:  # the state keeps one or the other
+        raise ValueError("iterate averaging cannot change its bookkeeping within a run (see averages_by_steps)")
+    state.average_steps = by_steps
     weights = np.zeros(0) if example_weight is None else np.ascontiguousarray(example_weight, dtype=np.float64)
     n_threads = resolve_threads(threads)
     rows = Rows(indptr, indices, data, y, order)
@@ -263,7 +267,7 @@ def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, lo
                         float(decay), float(l2), float(beta1), float(beta2), float(rho), float(epsilon),
                         int(max(1, batch_size)), bool(lazy), int(state.step),
                         _catch_up_kind(optimizer_code, l2, bool(lazy)))
-    remedies = Remedies(weights, float(l1), float(ftrl_beta), int(avg_from))
+    remedies = Remedies(weights, float(l1), float(ftrl_beta), int(avg_from), by_steps)
     lengths = indptr[order + 1] - indptr[order]
     threaded = n_threads > 1 and _batch_work(lengths, settings.batch_size, params.shape[1]) >= PARALLEL_MIN_WORK
     work = _work_space(lengths, params, settings, prefetch=not threaded, remedies=remedies, state=state)
@@ -282,13 +286,14 @@ def run_epoch(indptr, indices, data, y, order, params, state: KernelState, *, lo
 
 
 class Remedies(NamedTuple):
-    """The remedies' inputs of one epoch (see the module docstring): example weights (empty:
-    none), the L1 strength, FTRL's beta and the first step of the average."""
+    """The remedies' inputs of one epoch (the module docstring): example weights (empty: none), the L1
+    strength, FTRL's beta, the average's first step and whether it is kept by steps (averages_by_steps)."""
 
     example_weight: np.ndarray
     l1: float
     ftrl_beta: float
     avg_from: int
+    by_steps: bool = False
 
 
 def _epoch_one_thread(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, r: Remedies):
@@ -300,7 +305,7 @@ def _epoch_one_thread(rows: Rows, params, state: KernelState, s: Settings, w: Wo
         s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched, w.missed, w.decays,
         w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active, w.scratch, r.example_weight,
         r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta, w.shrink_sums, state.avg_sum,
-        r.avg_from, w.average_gap)
+        r.avg_from, w.average_gap, r.by_steps)
 
 
 def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: WorkSpace, n_threads: int,
@@ -318,7 +323,7 @@ def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: Wor
             s.batch_size, s.lazy, s.step, s.kind, w.cum, w.powers, w.scores, w.dscores, w.example_loss, w.touched,
             w.missed, w.decays, w.row_start, w.entry_row, w.entry_example, w.entry_value, w.upcoming, w.active,
             r.example_weight, r.l1, w.l1_total, state.l1_applied, state.shifted_grad_sum, r.ftrl_beta,
-            w.shrink_sums, state.avg_sum, r.avg_from, w.average_gap, n_threads)
+            w.shrink_sums, state.avg_sum, r.avg_from, w.average_gap, r.by_steps, n_threads)
         loss_sum += total
         if not finite:
             return loss_sum, s.step + b + 1, False
@@ -328,9 +333,9 @@ def _batches_threads(rows: Rows, params, state: KernelState, s: Settings, w: Wor
 def _end_epoch(params, state: KernelState, s: Settings, w: WorkSpace, end, flush, n_threads, r: Remedies):
     """After the last step: the flush (every row caught up to ``end``) where it is due, else
     ``last_step = end`` where nothing is owed; the bias is always current. With lazy averaging
-    every row is caught up (its missed steps added to the average)."""
+    every row is caught up (its missed steps added to the average) unless it is kept by steps."""
     n_features = params.shape[0] - 1
-    averaging = s.lazy and state.avg_sum.shape[0] > 0
+    averaging = s.lazy and state.avg_sum.shape[0] > 0 and not r.by_steps
     if s.kind == CATCH_UP_WEIGHTS or (s.kind == CATCH_UP_STATE and flush) or averaging:
         _flush_rows(params, state, s, w.cum, w.shrink_sums, end, n_threads, PARALLEL_MIN_WORK, averaging,
                     r.avg_from)
@@ -341,8 +346,7 @@ def _end_epoch(params, state: KernelState, s: Settings, w: WorkSpace, end, flush
 
 def _flush_rows(params, state: KernelState, s: Settings, cum, shrink_sums, now, n_threads, threshold,
                 averaging=False, avg_from=0):
-    """Every feature row caught up to step ``now`` (:func:`compiled.flush_rows`), on
-    ``n_threads`` threads when the weights have at least ``threshold`` elements."""
+    """Every feature row caught up to step ``now`` (compiled.flush_rows), threaded from ``threshold`` weights."""
     n_features = params.shape[0] - 1
     avg_sum = state.avg_sum if averaging else np.zeros((0, params.shape[1]))
     if n_threads > 1 and params.size >= threshold:

@@ -347,7 +347,7 @@ def test_parallel_hinge_step_on_active_labels_is_identical(monkeypatch, name):
     assert p1.tobytes() == p2.tobytes() and s1.info.tobytes() == s2.info.tobytes() and l1 == l2_
 
 
-def _remedy_epochs(name, l1, threads=1):
+def _remedy_epochs(name, l1, threads=1, avg_from=10, loss=0):
     X, y = random_problem(n=300, n_features=80, n_labels=6, density=0.08, seed=13)
     code = optim.OPTIMIZERS[name].code
     params = np.zeros((81, 6))
@@ -355,26 +355,30 @@ def _remedy_epochs(name, l1, threads=1):
     weights = np.random.default_rng(2).uniform(0.5, 2.0, size=300)
     rng = np.random.default_rng(5)
     for _ in range(3):
-        _, finite = run_epoch(X.indptr, X.indices, X.data, y, rng.permutation(300), params, st, loss_code=0,
+        _, finite = run_epoch(X.indptr, X.indices, X.data, y, rng.permutation(300), params, st, loss_code=loss,
                               optimizer_code=code, schedule_code=0, learning_rate=LRS[name], batch_size=4, l1=l1,
-                              example_weight=weights, avg_from=10, threads=threads)
+                              example_weight=weights, avg_from=avg_from, threads=threads)
         assert finite
     return params, st
 
 
-@pytest.mark.parametrize("name,l1", [("sgd", 0.01), ("adagrad", 0.0), ("adam", 0.0), ("ftrl", 0.01)])
-def test_prefetching_and_threads_leave_the_remedies_bits_alone(monkeypatch, name, l1):
+@pytest.mark.parametrize("name,l1,avg_from,loss", [("sgd", 0.01, 10, 0), ("adagrad", 0.0, 10, 0), ("adam", 0.0, 10, 0),
+                                                   ("ftrl", 0.01, 10, 0), ("sgd", 0.0, 0, 1), ("adagrad", 0.0, 0, 0)])
+def test_prefetching_and_threads_leave_the_remedies_bits_alone(monkeypatch, name, l1, avg_from, loss):
     # The remedies' arrays (averaging's sums, SGD's L1 record, FTRL's z) are prefetched with the
     # next batch's rows at batch sizes up to PREFETCH_MAX_EXAMPLES. A prefetch is only a hint: a
     # run without prefetching, and one whose batches all take the parallel path (which does not
     # prefetch), must give the same bits in every array, statistics included.
-    runs = [_remedy_epochs(name, l1)]
+    # The last two cases keep the average by steps (kernels.averages_by_steps; the hinge, loss 1,
+    # on its active labels).
+    runs = [_remedy_epochs(name, l1, avg_from=avg_from, loss=loss)]
     with monkeypatch.context() as m:
         m.setattr(kernels, "PREFETCH_MAX_EXAMPLES", 0)
-        runs.append(_remedy_epochs(name, l1))
+        runs.append(_remedy_epochs(name, l1, avg_from=avg_from, loss=loss))
     with monkeypatch.context() as m:
         m.setattr(kernels, "PARALLEL_MIN_WORK", 0)
-        runs.append(_remedy_epochs(name, l1, threads=2))
+        runs.append(_remedy_epochs(name, l1, threads=2, avg_from=avg_from, loss=loss))
+    assert runs[0][1].average_steps == (avg_from == 0)
     (p0, s0), others = runs[0], runs[1:]
     assert np.abs(p0).max() > 1e-3 and np.abs(s0.avg_sum).max() > 1e-3  # it trained and averaged
     for p, s in others:
