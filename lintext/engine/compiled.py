@@ -363,18 +363,19 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     sum_sq_grad[j, c] = acc
                     params[j, c] = w - lr * gc / (np.sqrt(acc) + epsilon)
                 nonzero += gc != 0.0
-                moved[k] = params[j, c] - w
+                d = params[j, c] - w
+                moved[k] = abs(d)
                 if add_to_average == ADD_STEPS and gc != 0.0:  # a zero gradient moved nothing
-                    avg_sum[j, c] += t_step * moved[k]
+                    avg_sum[j, c] += t_step * d
             if nonzero > 0:
                 info[j, STAT_COUNT] += 1
                 s0 = 0.0
                 s1 = 0.0
                 for k in range(0, n_active - 1, 2):
-                    s0 += abs(moved[k])
-                    s1 += abs(moved[k + 1])
+                    s0 += moved[k]
+                    s1 += moved[k + 1]
                 if n_active % 2 == 1:
-                    s0 += abs(moved[n_active - 1])
+                    s0 += moved[n_active - 1]
                 info_f[j, STAT_SUM] += s0 + s1
             if mark >= 0:
                 info[j, LAST] = mark
@@ -403,13 +404,13 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     w = params[j, l] * 1.0
                     params[j, l] = (w - lr * g[l]) / shrink
                     nonzero += g[l] != 0.0
-                    moved[l] = params[j, l] - w
+                    moved[l] = abs(params[j, l] - w)
             else:
                 for l in range(n_labels):
                     w = params[j, l] * 1.0
                     params[j, l] = w - lr * g[l]
                     nonzero += g[l] != 0.0
-                    moved[l] = params[j, l] - w
+                    moved[l] = abs(params[j, l] - w)
         elif opt_code == ADAGRAD:
             if reg > 0.0:
                 for l in range(n_labels):
@@ -419,7 +420,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     eta = lr / (np.sqrt(acc) + epsilon)
                     params[j, l] = (w - eta * g[l]) / (1.0 + eta * reg)
                     nonzero += g[l] != 0.0
-                    moved[l] = params[j, l] - w
+                    moved[l] = abs(params[j, l] - w)
             else:
                 for l in range(n_labels):
                     w = params[j, l] * 1.0
@@ -427,7 +428,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                     sum_sq_grad[j, l] = acc
                     params[j, l] = w - lr * g[l] / (np.sqrt(acc) + epsilon)
                     nonzero += g[l] != 0.0
-                    moved[l] = params[j, l] - w
+                    moved[l] = abs(params[j, l] - w)
         elif opt_code == RMSPROP:
             f = decay1[s]
             for l in range(n_labels):
@@ -437,7 +438,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 second_moment[j, l] = v
                 params[j, l] = w - lr * gg / (np.sqrt(v) + epsilon)
                 nonzero += g[l] != 0.0
-                moved[l] = params[j, l] - w
+                moved[l] = abs(params[j, l] - w)
         elif opt_code == ADADELTA:
             f = decay1[s]
             for l in range(n_labels):
@@ -450,7 +451,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 avg_sq_update[j, l] = rho * old + ar * dx * dx
                 params[j, l] = w + lr * dx
                 nonzero += g[l] != 0.0
-                moved[l] = params[j, l] - w
+                moved[l] = abs(params[j, l] - w)
         elif opt_code == ADAM:
             f1 = decay1[s]
             f2 = decay2[s]
@@ -476,7 +477,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 second_moment[j, l] = v
                 params[j, l] = w - step * m1 / (np.sqrt(v) + eps)
                 nonzero += g[l] != 0.0
-                moved[l] = params[j, l] - w
+                moved[l] = abs(params[j, l] - w)
         elif opt_code == FTRL:
             pen = 0.0 if j == bias else l1
             lam2 = reg
@@ -493,7 +494,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
                 else:
                     params[j, l] = -(z - np.sign(z) * pen) / ((ftrl_beta + np.sqrt(n_new)) / lr + lam2)
                 nonzero += g[l] != 0.0
-                moved[l] = params[j, l] - w
+                moved[l] = abs(params[j, l] - w)
         if nonzero > 0:
             info[j, STAT_COUNT] += 1
             # |dw| summed as four interleaved partial sums combined (s0 + s1) + (s2 + s3): a
@@ -504,13 +505,13 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             s3 = 0.0
             l = 0
             while l + 4 <= n_labels:
-                s0 += abs(moved[l])
-                s1 += abs(moved[l + 1])
-                s2 += abs(moved[l + 2])
-                s3 += abs(moved[l + 3])
+                s0 += moved[l]
+                s1 += moved[l + 1]
+                s2 += moved[l + 2]
+                s3 += moved[l + 3]
                 l += 4
             while l < n_labels:
-                s0 += abs(moved[l])
+                s0 += moved[l]
                 l += 1
             info_f[j, STAT_SUM] += (s0 + s1) + (s2 + s3)
         if mark >= 0:
@@ -518,9 +519,9 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
         if add_to_average == ADD_WEIGHTS:  # averaging: the row's new weights (else average_rows, after L1)
             for l in range(n_labels):
                 avg_sum[j, l] += params[j, l]
-        elif add_to_average == ADD_STEPS:
+        elif add_to_average == ADD_STEPS:  # SGD and AdaGrad: a weight moves against its gradient's sign
             for l in range(n_labels):
-                avg_sum[j, l] += t_step * moved[l]
+                avg_sum[j, l] -= t_step * np.copysign(moved[l], g[l])
 
 
 @njit(**NO_REFCOUNT)

@@ -91,18 +91,21 @@ def test_with_every_remedy_off_the_weights_are_the_bits_of_before():
 # --------------------------------------------------------------------------- averaging
 
 
-@pytest.mark.parametrize("name,schedule,l2", [("sgd", "constant", 0.0), ("sgd", "constant", 0.05),
-                                              ("sgd", "inverse", 0.05), ("adagrad", "constant", 0.0),
-                                              ("adagrad", "constant", 0.05), ("ftrl", "constant", 0.05)])
+@pytest.mark.parametrize("name,schedule,l2,loss", [("sgd", "constant", 0.0, 0), ("sgd", "constant", 0.05, 0),
+                                                   ("sgd", "inverse", 0.05, 0), ("adagrad", "constant", 0.0, 0),
+                                                   ("adagrad", "constant", 0.05, 0), ("ftrl", "constant", 0.05, 0),
+                                                   ("sgd", "constant", 0.0, 1), ("adagrad", "constant", 0.0, 1)])
 @pytest.mark.parametrize("avg_from", [0, 17])
-def test_lazy_average_equals_dense_average(name, schedule, l2, avg_from):
+def test_lazy_average_equals_dense_average(name, schedule, l2, loss, avg_from):
     # Exactness claimed for SGD, AdaGrad and FTRL (lintext.engine.state): lazy iterates equal dense
     # ones, and the closed-form sums over missed steps (L2 shrinkage included) equal the dense sum.
     X, y = random_problem(n=30, n_features=40, density=0.08, seed=5)
     decay = 0.1 if schedule == "inverse" else 0.0
-    lazy_p, lazy_s, _ = kernel_run(name, X, y, l2=l2, schedule=schedule, decay=decay, average=True, avg_from=avg_from)
+    # loss 1, the hinge: SGD and AdaGrad step only the labels some example moves (the active ones)
+    lazy_p, lazy_s, _ = kernel_run(name, X, y, l2=l2, schedule=schedule, decay=decay, average=True, avg_from=avg_from,
+                                   loss=loss, n_labels=5)
     dense_p, dense_s, _ = kernel_run(name, X, y, lazy=False, l2=l2, schedule=schedule, decay=decay, average=True,
-                                     avg_from=avg_from)
+                                     avg_from=avg_from, loss=loss, n_labels=5)
     np.testing.assert_allclose(lazy_p, dense_p, rtol=0, atol=1e-12)
     # without L2, SGD and AdaGrad keep their lazy average by steps (kernels.averages_by_steps):
     # the sum of the weights is then T * w - avg_sum, equal to the dense sum to rounding
