@@ -21,7 +21,7 @@ and are tested against this module.
 
 from __future__ import annotations
 
-import numpy as np
+from .lazy import np
 
 SOFTMAX = 0
 HINGE = 1

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, fields
 
-import numpy as np
+from .lazy import np
 
 # Integer codes shared with the kernels (frozen; see OPTIMIZERS).
 SGD = 0
@@ -50,7 +50,7 @@ class PlainSGD:
 
     proximal = True
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {}
 
     def update(self, grad, state, lr):
@@ -90,7 +90,7 @@ class AdaGrad:
     initial_sum_sq: float = 0.01
     proximal = True
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {"sum_sq_grad": np.full(shape, self.initial_sum_sq, dtype)}
 
     def update(self, grad, state, lr):
@@ -130,7 +130,7 @@ class AdaDelta:
     epsilon: float = 1e-6
     proximal = False
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {"second_moment": np.zeros(shape, dtype), "avg_sq_update": np.zeros(shape, dtype)}
 
     def update(self, grad, state, lr):
@@ -171,7 +171,7 @@ class RMSProp:
     epsilon: float = 1e-8
     proximal = False
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {"second_moment": np.zeros(shape, dtype)}
 
     def update(self, grad, state, lr):
@@ -216,7 +216,7 @@ class Adam:
     epsilon: float = 1e-8
     proximal = False
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {
             "first_moment": np.zeros(shape, dtype),
             "second_moment": np.zeros(shape, dtype),
@@ -272,7 +272,7 @@ class FTRLProximal:
     proximal = False
     follows_leader = True
 
-    def init_state(self, shape, dtype=np.float64) -> dict:
+    def init_state(self, shape, dtype="float64") -> dict:
         return {"sum_sq_grad": np.zeros(shape, dtype), "shifted_grad_sum": np.zeros(shape, dtype)}
 
     def step(self, w, grad, state, lr, l1=0.0, l2=0.0):

@@ -10,9 +10,8 @@ appears in ``model.json``, the sweep tables and the report. A bad value raises
 from __future__ import annotations
 
 import math
+import numbers
 from dataclasses import asdict, dataclass, fields
-
-import numpy as np
 
 from ..errors import ConfigError
 from .losses import LOSS_CODES
@@ -232,7 +231,7 @@ def _choice(name, value, allowed):
 
 
 def _number(name, value, low=None, high=None, low_open=False, high_open=False):
-    numeric = isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
+    numeric = isinstance(value, numbers.Real) and not isinstance(value, bool)  # NumPy's numbers too
     if not numeric or not math.isfinite(value):
         raise ConfigError(flag(name), value, "must be a finite number")
     if low is not None and (value < low or (low_open and value == low)):
@@ -242,7 +241,7 @@ def _number(name, value, low=None, high=None, low_open=False, high_open=False):
 
 
 def _integer(name, value, low, high=None):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):  # NumPy's integers too
         raise ConfigError(flag(name), value, "must be a whole number")
     if value < low:
         raise ConfigError(flag(name), value, f"must be at least {low}")

@@ -24,8 +24,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterator
 
-import numpy as np
-
 from ..errors import ConfigError, InputError
 
 FORMATS = ("folder", "csv", "tsv", "jsonl", "lines")
@@ -133,8 +131,10 @@ class Corpus:
                 counts[lab] = counts.get(lab, 0) + 1
         return counts
 
-    def label_indices(self, label_names: list[str] | None = None) -> np.ndarray:
-        """Labels as integer codes in the order of ``label_names`` (default: this corpus's own)."""
+    def label_indices(self, label_names: list[str] | None = None):
+        """Labels as integer codes (an int64 array) in the order of ``label_names`` (default: this corpus's own)."""
+        import numpy as np  # here: the command line's options are declared from this module, and --help loads no NumPy
+
         names = self.label_names if label_names is None else label_names
         code = {name: i for i, name in enumerate(names)}
         out = np.empty(len(self.labels), dtype=np.int64)

@@ -1,8 +1,9 @@
 """Start-up: ``lintext --help`` and ``lintext COMMAND --help`` load none of the heavy libraries.
 
 Each command imports what it needs inside its function, so asking for help costs only Python,
-typer and rich. The check runs the real app in a fresh interpreter and reads ``sys.modules``
-there (Python's own record of what was imported); timings live in scripts/bench_end_to_end.py.
+typer and rich (not even NumPy: the engine's registries reach it through ``engine/lazy.py``).
+The check runs the real app in a fresh interpreter and reads ``sys.modules`` there (Python's own
+record of what was imported); timings live in scripts/bench_end_to_end.py.
 Importing ``lintext.pipeline`` (every predict and evaluate) loads neither numba nor scikit-learn:
 the compiled kernels and the vectorizers load when training or featurizing first needs them.
 """
@@ -17,7 +18,7 @@ from lintext.cli import app
 
 from ..conftest import ROOT
 
-HEAVY = ("sklearn", "scipy", "numba", "matplotlib")
+HEAVY = ("numpy", "sklearn", "scipy", "numba", "matplotlib")
 
 CHECK = r"""
 import json, sys
