@@ -58,7 +58,9 @@ def remedies_block(info: dict) -> str:
 
 def sparsity(model, table_: dict) -> dict:
     """Features with all weights exactly zero, per bin (:func:`lintext.engine.sparsity.zero_weights`)."""
-    coef = np.asarray(model.coef)[table_["column"]]
+    columns = np.asarray(table_["column"])
+    every = len(columns) == model.coef.shape[0] and np.array_equal(columns, np.arange(len(columns)))
+    coef = model.coef if every else np.asarray(model.coef)[columns]  # every row, in order: no copy
     return zero_weights(coef, table_["document_frequency"])
 
 
