@@ -326,8 +326,14 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
             prefetch_row(second_moment, jf, line)
             prefetch_row(avg_sq_update, jf, line)
             prefetch_row(shifted_grad_sum, jf, line)
-            if add_to_average != ADD_STEPS or n_active == n_labels:  # by steps, a hinge batch moves few of them
+            if add_to_average != ADD_STEPS or n_active == n_labels:
                 prefetch_row(avg_sum, jf, 8)  # float64 whatever the weights' precision
+            else:  # by steps, a hinge batch moves its active labels only: their lines (active is ascending)
+                seen = -1
+                for k in range(n_active):
+                    if active[k] // 8 != seen:
+                        seen = active[k] // 8
+                        prefetch(avg_sum, jf, active[k])
         if s < lo:
             continue
         owed += n_up
