@@ -67,7 +67,9 @@ model-sized array; and fortunes, 43 labels, 16 MB):
 
 * Memory. A touched row is 6 to 9 cache lines per model-sized array, scattered; per epoch SGD
   moves one such array (about 0.8x the SciPy floor on the large shape), AdaGrad and RMSProp
-  two (1.3-1.5x), Adam and AdaDelta three (2.0-2.2x), averaging one more (SGD 1.3x). A
+  two (1.3-1.5x), Adam and AdaDelta three (2.0-2.2x), averaging one more (SGD 1.3x) unless
+  it is kept by steps (``ADD_STEPS``: SGD and AdaGrad without L1 or L2), where a hinge batch
+  touches the sums of its active labels only and averaging costs next to nothing. A
   quarter to a third of the samples sit on the prefetch instructions: the core's outstanding
   misses are all in use. ``precision="float32"`` halves the lines (AdaGrad 0.9x, Adam 1.4x,
   AdaDelta 1.35x there).
