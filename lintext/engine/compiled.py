@@ -288,7 +288,7 @@ def apply_rows(lo, hi, touched, decay1, decay2, row_start, entry_example, entry_
     (without it, :func:`average_rows` adds them after the L1 penalty): the same additions in the
     same order as when they were passes of their own, made while the row is in the cache. With
     ``add_to_average == ADD_STEPS`` (SGD and AdaGrad without L1 or L2, averaged from the first step;
-    :func:`lintext.engine.kernels.averages_by_steps`) it adds ``t * (w_after - w_before)`` instead,
+    :func:`lintext.engine.state.averages_by_steps`) it adds ``t * (w_after - w_before)`` instead,
     ``t = mark - 1`` the step, and only to the weights that moved: the sum of the iterates is then
     ``T * w - avg_sum`` after ``T`` steps (:meth:`lintext.engine.state.KernelState.weight_sum`), and a
     hinge batch, which moves two labels per example, touches two of a row's sums, not all of them.

@@ -22,7 +22,7 @@ the paths :mod:`lintext.engine.kernels` describes, bit for bit):
   average of the lazy iterates for the other rules. Every epoch then ends with a full catch-up.
   For SGD and AdaGrad without L1 or L2, averaged from step 0 (the default training),
   ``avg_sum`` holds instead ``sum_t t * (w_t - w_(t-1))``, added only where a weight moved, and
-  nothing is caught up (``average_steps``; :func:`lintext.engine.kernels.averages_by_steps`):
+  nothing is caught up (``average_steps``; :func:`lintext.engine.state.averages_by_steps`):
   :meth:`KernelState.weight_sum` gives the sum of the weights either way.
 
 Arrays of the remedies (zero rows when off):

@@ -369,7 +369,7 @@ def test_prefetching_and_threads_leave_the_remedies_bits_alone(monkeypatch, name
     # next batch's rows at batch sizes up to PREFETCH_MAX_EXAMPLES. A prefetch is only a hint: a
     # run without prefetching, and one whose batches all take the parallel path (which does not
     # prefetch), must give the same bits in every array, statistics included.
-    # The last two cases keep the average by steps (kernels.averages_by_steps; the hinge, loss 1,
+    # The last two cases keep the average by steps (state.averages_by_steps; the hinge, loss 1,
     # on its active labels).
     runs = [_remedy_epochs(name, l1, avg_from=avg_from, loss=loss)]
     with monkeypatch.context() as m:

@@ -107,7 +107,7 @@ def test_lazy_average_equals_dense_average(name, schedule, l2, loss, avg_from):
     dense_p, dense_s, _ = kernel_run(name, X, y, lazy=False, l2=l2, schedule=schedule, decay=decay, average=True,
                                      avg_from=avg_from, loss=loss, n_labels=5)
     np.testing.assert_allclose(lazy_p, dense_p, rtol=0, atol=1e-12)
-    # without L2, SGD and AdaGrad keep their lazy average by steps (kernels.averages_by_steps):
+    # without L2, SGD and AdaGrad keep their lazy average by steps (state.averages_by_steps):
     # the sum of the weights is then T * w - avg_sum, equal to the dense sum to rounding
     assert lazy_s.average_steps == (name in ("sgd", "adagrad") and l2 == 0.0 and avg_from == 0)
     assert not dense_s.average_steps
