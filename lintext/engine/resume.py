@@ -22,7 +22,8 @@ def snapshot(params, state: KernelState, rng, lr, monitor, best_params, best_epo
     return {
         "params": params.copy(), "state": {name: getattr(state, name).copy() for name in STATE_ARRAY_NAMES + ("info",)},
         "averaged": {name: getattr(state, name).copy() for name in ("l1_applied", "avg_sum")},
-        "l1_total": float(state.l1_total), "step": int(state.step), "pending": bool(state.pending), "rng": rng.bit_generator.state, "lr": lr,
+        "l1_total": float(state.l1_total), "step": int(state.step), "pending": bool(state.pending),
+        "average_steps": bool(state.average_steps), "rng": rng.bit_generator.state, "lr": lr,
         "monitor": (monitor.best, monitor.since_best), "best_params": None if best_params is None else best_params.copy(),
         "best_epoch": best_epoch, "history": [dict(row) for row in history], "reference_loss": reference_loss,
         "last_lr": last_lr, "objectives": list(objectives),
@@ -37,7 +38,7 @@ def restore(checkpoint: dict, params, state: KernelState, rng, monitor):
     for name, array in {**checkpoint["state"], **checkpoint["averaged"]}.items():
         np.copyto(getattr(state, name), array)  # into the fresh, cache-aligned arrays
     state.l1_total = checkpoint["l1_total"]
-    state.step, state.pending = checkpoint["step"], checkpoint["pending"]
+    state.step, state.pending, state.average_steps = checkpoint["step"], checkpoint["pending"], checkpoint["average_steps"]
     rng.bit_generator.state = checkpoint["rng"]
     monitor.best, monitor.since_best = checkpoint["monitor"]
     best = checkpoint["best_params"]

@@ -65,6 +65,7 @@ def averages_by_steps(optimizer_code: int, lazy: bool, l2: float, l1: float, avg
     """
     return optimizer_code in (SGD, ADAGRAD) and lazy and l2 == 0.0 and l1 == 0.0 and avg_from == 0
 
+
 def _aligned_rows(n_rows: int, width: int) -> np.ndarray:
     """Initial per-row records ``(n_rows, width)`` (``width`` 4 or 8 int64), the array starting on
     a 64-byte boundary so that each record sits in one cache line: zero counts, and
@@ -86,7 +87,8 @@ class KernelState:
     the per-row bookkeeping (see :mod:`lintext.engine.compiled`), read through the views
     ``update_count`` (Adam's per-row bias-correction count), ``last_step`` (the lazy
     bookkeeping), ``stat_update_count`` and ``stat_abs_update_sum`` (the per-row statistics).
-    ``step`` is the global step. ``pending`` is True when rows of a decaying rule still owe
+    ``step`` is the global step; ``average_steps`` says how ``avg_sum`` is kept (set by the first
+    ``run_epoch``, carried by a checkpoint). ``pending`` is True when rows of a decaying rule still owe
     the decay of missed steps (after ``run_epoch(..., flush=False)``); :func:`flush` settles it.
     """
 

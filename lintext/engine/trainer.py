@@ -73,7 +73,6 @@ from .options import TrainOptions, parse_label_weights
 from .schedules import SCHEDULE_CODES, plateau_update, schedule_learning_rate
 from .resume import restore, snapshot
 from .shards import RowShards, epoch_pieces, shard_dev_scores
-from .state import averages_by_steps
 
 DIVERGENCE_FACTOR = 1e3
 # A train loss that rose in this many epochs in a row (each above the one before) is divergence.
@@ -216,8 +215,6 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     sizes = X.sizes if isinstance(X, RowShards) else [n]  # each shard ends in its own last batch
     steps_per_epoch = sum(-(-size // options.batch_size) for size in sizes)
     avg_from = (options.average - 1) * steps_per_epoch if options.average else 0
-    state.average_steps = options.average > 0 and averages_by_steps(code, options.lazy, options.l2, options.l1,
-                                                                             avg_from)
     averaged = np.empty_like(params) if options.average else None
     total_weight = float(n if weights is None else weights.sum())
     rng = np.random.default_rng(options.seed)

@@ -109,6 +109,7 @@ def test_resuming_with_no_epoch_left_returns_the_checkpointed_run(average):
     X, y = problem()
     options = TrainOptions(loss="softmax", learning_rate=0.5, epochs=3, patience=0, average=average, refit=False)
     run = fit(X, y, 3, options=options, keep_checkpoint=True)
+    assert run.checkpoint["average_steps"] == (average == 1)  # SGD without L1 or L2, from step 0: kept by steps
     again = fit(X, y, 3, options=options, resume=run.checkpoint)
     assert np.array_equal(again.coef, run.coef) and np.array_equal(again.intercept, run.intercept)
 
