@@ -6,10 +6,12 @@ from __future__ import annotations
 
 
 class _NumPy:
-    def __getattr__(self, name):
+    def __getattr__(self, name):  # called once per name: the value is then an attribute of the instance
         import numpy
 
-        return getattr(numpy, name)
+        value = getattr(numpy, name)
+        setattr(self, name, value)
+        return value
 
 
 np = _NumPy()

@@ -12,11 +12,9 @@ from __future__ import annotations
 import math
 from html import escape
 
-import numpy as np
-
 from ..engine.sparsity import zero_weights
 from .layout import fmt, pct, table
-from .stats import key_numbers
+from .stats import coef_rows, key_numbers
 
 
 def remedies(info: dict) -> list[tuple[str, str]]:
@@ -58,10 +56,7 @@ def remedies_block(info: dict) -> str:
 
 def sparsity(model, table_: dict) -> dict:
     """Features with all weights exactly zero, per bin (:func:`lintext.engine.sparsity.zero_weights`)."""
-    columns = np.asarray(table_["column"])
-    every = len(columns) == model.coef.shape[0] and np.array_equal(columns, np.arange(len(columns)))
-    coef = model.coef if every else np.asarray(model.coef)[columns]  # every row, in order: no copy
-    return zero_weights(coef, table_["document_frequency"])
+    return zero_weights(coef_rows(model, table_["column"]), table_["document_frequency"])
 
 
 def zero_column(model, table_: dict, bins: list) -> list[str]:

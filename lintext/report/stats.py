@@ -146,16 +146,20 @@ def size_key(values) -> np.ndarray:
     return np.round(np.asarray(values, dtype=np.float64), 12)
 
 
-def weight_rows(model, columns) -> np.ndarray:
-    """The rows ``columns`` of ``model.coef`` as float64 (no copy when they are all of them, in order,
-    and already float64); only the rows taken are widened (a hashing model uses few of its rows)."""
+def coef_rows(model, columns) -> np.ndarray:
+    """The rows ``columns`` of ``model.coef`` as stored: ``coef`` itself when they are all of them in
+    order, a view when they are a run of rows, else a copy of just those rows."""
     coef = model.coef
     columns = np.asarray(columns, dtype=np.int64)
     if len(columns) and columns[-1] - columns[0] == len(columns) - 1 and (np.diff(columns) == 1).all():
-        if len(columns) == coef.shape[0]:
-            return np.asarray(coef, dtype=np.float64)
-        return np.asarray(coef[columns[0]:columns[-1] + 1], dtype=np.float64)  # a run of rows: a slice, no gather
-    return np.asarray(coef[columns], dtype=np.float64)
+        return coef if len(columns) == coef.shape[0] else coef[columns[0]:columns[-1] + 1]
+    return coef[columns]
+
+
+def weight_rows(model, columns) -> np.ndarray:
+    """:func:`coef_rows` as float64: no copy when they are all of the rows, in order, and already
+    float64; only the rows taken are widened (a hashing model uses few of its rows)."""
+    return np.asarray(coef_rows(model, columns), dtype=np.float64)
 
 
 # ---------------------------------------------------------------- frequency bins

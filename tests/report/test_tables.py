@@ -162,3 +162,8 @@ def test_weight_rows_widens_only_the_rows_it_takes():
     assert np.array_equal(every, coef.astype(np.float64))
     wide = SimpleNamespace(coef=coef.astype(np.float64))
     assert weight_rows(wide, np.arange(coef.shape[0])) is wide.coef  # already float64: no copy
+    from lintext.report.stats import coef_rows
+
+    assert coef_rows(model, np.arange(coef.shape[0])) is coef  # the stored rows, as they are (the zero count)
+    run = coef_rows(model, np.arange(10, 500))
+    assert np.shares_memory(run, coef) and np.array_equal(run, coef[10:500])
