@@ -8,15 +8,21 @@ The fortunes corpus is the TSV that ``../shared/tools/fortunes_corpus.sh`` build
 
 from __future__ import annotations
 
-import csv
 import json
 import os
 import random
 import subprocess
+import sys
 import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+# (text, label) rows as a CSV file: the tests' writer, one for both (the benchmarks run in the tests' venv)
+from tests.conftest import write_csv  # noqa: E402,F401
+
 FORTUNES_SCRIPT = ROOT.parent / "shared" / "tools" / "fortunes_corpus.sh"
 FORTUNES_TSV = Path("/tmp/lintext-bench/fortunes.tsv")
 
@@ -45,16 +51,6 @@ def fortunes_rows(log=None, path: Path = FORTUNES_TSV) -> list[tuple[str, str, i
         path.parent.mkdir(parents=True, exist_ok=True)
         subprocess.run(["bash", str(FORTUNES_SCRIPT), str(path)], check=True, capture_output=True)
     return labelled_tsv_rows(path)
-
-
-def write_csv(path: Path, rows) -> Path:
-    """``(text, label)`` rows as a CSV file with a ``text,label`` header (its folder made if needed)."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow(["text", "label"])
-        writer.writerows(rows)
-    return path
 
 
 def fortunes_csv(folder: Path, shuffled: bool = False) -> Path | None:
