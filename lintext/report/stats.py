@@ -116,7 +116,7 @@ def _row_summaries(model, columns) -> dict:
     row, the centred row's largest weight and its label (``len(labels)`` for an empty model)."""
     n, k = len(columns), model.coef.shape[1]
     out = {"mean": np.zeros(n), "norm": np.zeros(n), "raw_norm": np.zeros(n), "max": np.zeros(n),
-           "best": np.full(n, k if k == 0 else 0, dtype=np.int64)}
+           "best": np.zeros(n, dtype=np.int64)}  # with no labels, 0 is len(labels): the label ""
     if k == 0:
         return out
     for part, raw in _row_blocks(model, columns):
