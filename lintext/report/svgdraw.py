@@ -68,7 +68,7 @@ def marker_style(kind: str, colour: str, alpha: float = 1.0, edge: str | None = 
     return out + (f' stroke="{edge}" stroke-width="0.6"' if edge else "")
 
 
-DASHES = {"-": None, "--": "5 3", ":": "1.2 2.4", "-.": "5 2 1.2 2"}
+DASHES = {"-": None, "--": "5 3", ":": "1.2 2.4"}
 
 
 # ---------------------------------------------------------------- drawing
@@ -95,7 +95,7 @@ def panel_svg(p, pid: str, x0: float, y0: float, w: float, h: float, rotation: f
     inside_x = [(v, t, s) for v, t, s in zip(xs.tolist(), xl, xt) if x0 - 0.5 <= v <= x0 + w + 0.5]
     inside_y = [(v, t, s) for v, t, s in zip(ys.tolist(), yl, yt) if y0 - 0.5 <= v <= y0 + h + 0.5]
     has_cells = any(kind == "cells" for kind, *_ in p.items)
-    if p.grid and not has_cells:
+    if not has_cells:
         d = "".join(f"M{num(v)} {num(y0)}v{num(h)}" for v, _, _ in inside_x)
         d += "".join(f"M{num(x0)} {num(v)}h{num(w)}" for v, _, _ in inside_y)
         if d:
@@ -147,10 +147,10 @@ def panel_svg(p, pid: str, x0: float, y0: float, w: float, h: float, rotation: f
         if math.isfinite(tx) and math.isfinite(ty):
             out.append(f'<text x="{num(tx)}" y="{num(ty)}" text-anchor="{style["anchor"]}" font-size="{style["size"]:g}" '
                        f'fill="{style["colour"]}">{escape(style["text"])}</text>')
-    if p.frame and has_cells:
+    if has_cells:
         out.append(f'<rect x="{num(x0)}" y="{num(y0)}" width="{num(w)}" height="{num(h)}" stroke="{GRID}" '
                    'stroke-width="0.8" fill="none"/>')
-    elif p.frame:
+    else:
         out.append(f'<path d="M{num(x0)} {num(y0)}V{num(y0 + h)}H{num(x0 + w)}" stroke="{MUTED}" stroke-width="0.8" fill="none"/>')
     # ticks and their labels
     ticks = "".join(f"M{num(v)} {num(y0 + h)}v3.5" for v, _, _ in inside_x) + "".join(

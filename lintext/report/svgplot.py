@@ -125,9 +125,7 @@ class Panel:
         self.xtick_rotation = 0
         self.tick_size = FONT
         self.integer_x = False
-        self.x_tick_text = self.y_tick_text = None
-        self.grid = True
-        self.frame = True
+        self.x_tick_text = None  # a function of the tick's value, for the x axis's labels
         self.message = None
         self.square = False
 
@@ -243,7 +241,7 @@ class Panel:
             return list(given[0]), [str(t) for t in given[1]]
         scale = self.x if axis == "x" else self.y
         values, labels = scale.ticks(target, integer=self.integer_x and axis == "x")
-        fmt = self.x_tick_text if axis == "x" else self.y_tick_text
+        fmt = self.x_tick_text if axis == "x" else None
         return values, ([fmt(v) for v in values] if fmt else labels)
 
 
