@@ -28,7 +28,6 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-import scipy.sparse as sp
 
 from . import __version__
 from .arrays import read_npz
@@ -105,6 +104,8 @@ class Model:
         Only the rows of ``coef`` for features present in ``X`` are read (and widened to
         float64): a few texts cost little whatever the size of the model.
         """
+        import scipy.sparse as sp  # here: loading a model (and writing its report) needs no SciPy
+
         X = sp.csr_matrix(X)
         used = np.unique(X.indices)
         part = np.asarray(self.coef[used], dtype=np.float64)

@@ -24,6 +24,7 @@ from ..files import atomic_file
 from . import figures
 from .svgdraw import blend
 from .layout import figure_block, fmt, pct, table
+from .leaf_order import average_linkage, optimal_leaf_order
 
 MATRIX_MAX_LABELS = 12
 HEAT_MAX_LABELS = 60
@@ -116,11 +117,8 @@ def confusion_order(counts) -> np.ndarray:
 
     Similarity of labels ``a`` and ``b``: ``s = share(a -> b) + share(b -> a)`` (shares of the
     true label's documents); distance ``1 - s / max(s)``; average-linkage clustering with the
-    leaves in optimal order (Bar-Joseph, Gifford & Jaakkola 2001, as implemented by SciPy).
+    leaves in optimal order (Bar-Joseph, Gifford & Jaakkola 2001; :mod:`.leaf_order`).
     """
-    from scipy.cluster.hierarchy import leaves_list, linkage
-    from scipy.spatial.distance import squareform
-
     counts = np.asarray(counts, dtype=np.float64)
     n = len(counts)
     if n < 3:
@@ -134,8 +132,7 @@ def confusion_order(counts) -> np.ndarray:
         return np.arange(n)
     dist = 1.0 - sim / top
     np.fill_diagonal(dist, 0.0)
-    tree = linkage(squareform(dist, checks=False), method="average", optimal_ordering=True)
-    return leaves_list(tree)
+    return optimal_leaf_order(average_linkage(dist), dist)
 
 
 # ---------------------------------------------------------------- figures

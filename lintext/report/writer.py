@@ -74,12 +74,21 @@ def _float_cells(values: np.ndarray) -> list[str]:
     finite = np.isfinite(values)
     whole = finite & (np.trunc(values) == values) & (np.abs(values) < 2.0**53)
     if whole.all():
-        return list(map(str, values.astype(np.int64).tolist()))
-    cells = np.array(list(map(float.__repr__, values.tolist())), dtype=object)  # repr, without the builtin's dispatch
+        return _distinct_cells(values.astype(np.int64), str).tolist()
+    cells = np.full(len(values), "", dtype=object)
     if whole.any():
-        cells[whole] = np.array(list(map(str, values[whole].astype(np.int64).tolist())), dtype=object)
-    cells[~finite] = ""
+        cells[whole] = _distinct_cells(values[whole].astype(np.int64), str)
+    rest = finite & ~whole
+    if rest.any():
+        cells[rest] = _distinct_cells(values[rest], float.__repr__)  # repr, without the builtin's dispatch
     return cells.tolist()
+
+
+def _distinct_cells(values: np.ndarray, form) -> np.ndarray:
+    """``form`` of each value as an object array, each distinct value formatted once (a report's
+    columns repeat: every feature never updated has the same zeros)."""
+    distinct, inverse = np.unique(values, return_inverse=True)
+    return np.array(list(map(form, distinct.tolist())), dtype=object)[inverse]
 
 
 def _quoted(text: str) -> str:

@@ -349,9 +349,13 @@ class Featurizer:
             line = next(i for i, name in enumerate(names) if name in seen or seen.add(name)) + 2
             raise ModelFileError(vocabulary_path, f"line {line}: feature {names[line - 2]!r} appears twice")
         order = np.argsort(index)
-        self.feature_names = [names[i] for i in order]
-        self.document_frequency = df[order]
-        is_char = np.array([n.startswith("[") and n.endswith("]") and len(n) > 2 for n in self.feature_names], bool)
+        in_order = np.array_equal(order, np.arange(len(order)))  # as written by save_vocabulary
+        self.feature_names = names if in_order else [names[i] for i in order]
+        self.document_frequency = df if in_order else df[order]
+        if "\0[" in "\0" + "\0".join(self.feature_names):  # some name starts with "[": look at each
+            is_char = np.array([n.startswith("[") and n.endswith("]") and len(n) > 2 for n in self.feature_names], bool)
+        else:
+            is_char = np.zeros(len(order), dtype=bool)
         n_word = int((~is_char).sum())
         if is_char[:n_word].any() or (config.char_ngrams is None and n_word != len(index)):
             raise ModelFileError(vocabulary_path, "word and character features are out of order")

@@ -78,25 +78,58 @@ def read_vocabulary(path: Path):
 
 
 def _vocabulary_columns(path: Path):
-    """The three columns split and converted a column at a time, or ``None`` when anything is off."""
+    """The three columns found from the positions of tabs and line ends, or ``None`` when anything
+    is off (any line without exactly two tabs, a number that is not plain ASCII digits, ...)."""
     try:
-        header, _, body = path.read_bytes().partition(b"\n")
-        body = body.decode("utf-8")
-    except (OSError, UnicodeDecodeError):
+        data = path.read_bytes()
+    except OSError:
         return None
-    header = header.decode("utf-8", "replace")
-    if header != VOCAB_HEADER and header not in OLD_VOCAB_HEADERS:
+    header, _, body = data.partition(b"\n")
+    if header.decode("utf-8", "replace") not in (VOCAB_HEADER, *OLD_VOCAB_HEADERS):
         return None
-    rows = body.split("\n")
-    if rows and rows[-1] == "":
-        rows.pop()
-    if any(row.count("\t") != 2 for row in rows):
+    if body and not body.endswith(b"\n"):
+        body += b"\n"
+    raw = np.frombuffer(body, dtype=np.uint8)
+    ends = np.flatnonzero(raw == 10)
+    tabs = np.flatnonzero(raw == 9)
+    if len(tabs) != 2 * len(ends):
         return None
-    cells = "\t".join(rows).split("\t") if rows else []
+    first, second = tabs[0::2], tabs[1::2]
+    starts = np.concatenate(([0], ends[:-1] + 1))
+    if not (np.all(first >= starts) and np.all(second < ends)):  # with the counts equal: two tabs on every line
+        return None
+    index = _digits(raw, first + 1, second)
+    df = _digits(raw, second + 1, ends)
+    if index is None or df is None:
+        return None
     try:
-        index, df = list(map(int, cells[1::3])), list(map(int, cells[2::3]))
-    except ValueError:
+        text = body.decode("utf-8")
+    except UnicodeDecodeError:
         return None
-    if rows and (min(min(index), min(df)) < 0 or max(max(index), max(df)) >= 2**62):
+    cells = text.replace("\n", "\t").split("\t")
+    names = cells[0:-1:3]
+    if "\\" in text:
+        names = list(map(unescape, names))
+    return names, index, df
+
+
+_MAX_DIGITS = 18  # below 2**62 is at most 19 digits; longer numbers go the line-by-line way
+
+
+def _digits(raw: np.ndarray, starts: np.ndarray, stops: np.ndarray):
+    """Non-negative integers written in plain ASCII digits at ``raw[starts[i]:stops[i]]`` (int64),
+    or ``None`` when a field is empty, longer than :data:`_MAX_DIGITS` or not all digits."""
+    lengths = stops - starts
+    if len(lengths) == 0:
+        return np.zeros(0, dtype=np.int64)
+    if lengths.min() < 1 or lengths.max() > _MAX_DIGITS:
         return None
-    return list(map(unescape, cells[0::3])), np.array(index, dtype=np.int64), np.array(df, dtype=np.int64)
+    width = int(lengths.max())
+    place = np.arange(width)
+    pos = stops[:, None] - width + place  # right-aligned: the last column holds the units
+    inside = place >= (width - lengths)[:, None]
+    digits = raw[np.where(inside, pos, 0)].astype(np.int64) - 48
+    if np.any(inside & ((digits < 0) | (digits > 9))):
+        return None
+    powers = 10 ** np.arange(width - 1, -1, -1, dtype=np.int64)
+    return (np.where(inside, digits, 0) * powers).sum(axis=1)

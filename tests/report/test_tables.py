@@ -93,6 +93,8 @@ def test_features_csv_reads_back_bit_for_bit(tmp_path):
 @pytest.mark.parametrize("values", [
     np.array(AWKWARD), np.array([3, -7, 0, 2**62], dtype=np.int64), np.array([1.0, 2.0, -0.0]),
     np.array([], dtype=np.float64), np.array([True, False]), TEXTS, [1, 2.5, None, "x"],
+    np.random.default_rng(0).permutation(np.array(AWKWARD * 4)),  # repeats: each distinct value formatted once
+    np.array([7.0, -2.0, 7.0, 0.0, -0.0] * 3),  # whole floats only, repeated
 ])
 def test_csv_cells_equal_csv_value(values):
     out = io.StringIO()

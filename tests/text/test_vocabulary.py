@@ -51,3 +51,29 @@ def test_last_line_without_a_line_break_and_empty_vocabulary(tmp_path):
     assert f.feature_names == ["alpha", "beta"] and f.document_frequency.tolist() == [7, 5]  # in column order
     path.write_text(VOCAB_HEADER + "\n", encoding="utf-8")
     assert Featurizer.load(STATE, path).feature_names == []
+
+
+@pytest.mark.parametrize("body, names, columns, frequencies", [
+    # by hand: leading zeros, the largest 18-digit number and a 19-digit one below 2**62
+    ("a\t0\t007\nb\t1\t999999999999999999\nc\t2\t4611686018427387903\n", ["a", "b", "c"], [0, 1, 2],
+     [7, 999999999999999999, 2**62 - 1]),
+    ("a\t1\t2\r\nb\t0\t3\r\n", ["a", "b"], [1, 0], [2, 3]),  # Windows line ends: int() strips the \r
+    ("x\\ty\t0\t1\n\t1\t1\n", ["x\ty", ""], [0, 1], [1, 1]),  # an escaped tab, an empty name
+])
+def test_columns_read_as_written(tmp_path, body, names, columns, frequencies):
+    from lintext.text.vocabulary import read_vocabulary
+
+    path = tmp_path / "vocabulary.tsv"
+    path.write_bytes((VOCAB_HEADER + "\n" + body).encode("utf-8"))
+    got_names, got_columns, got_frequencies = read_vocabulary(path)
+    assert got_names == names
+    assert got_columns.tolist() == columns and got_frequencies.tolist() == frequencies
+    assert got_columns.dtype == np.int64 and got_frequencies.dtype == np.int64
+
+
+def test_column_out_of_range_is_named(tmp_path):
+    path = tmp_path / "vocabulary.tsv"
+    path.write_text(VOCAB_HEADER + "\na\t0\t1\nb\t4611686018427387904\t1\n", encoding="utf-8")  # 2**62
+    with pytest.raises(ModelFileError) as info:
+        Featurizer.load(STATE, path)
+    assert "line 3: column 4611686018427387904 out of range" in str(info.value)
