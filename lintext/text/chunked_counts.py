@@ -129,12 +129,21 @@ def ngram_keys(ranks, lengths, ngram_range, base) -> tuple[np.ndarray, np.ndarra
 
 def _unique_inverse(values, inverse=True):
     """Sorted distinct values and each value's position among them (np.unique through one
-    argsort; np.unique itself is several times slower here on large int64 arrays)."""
+    sort; np.unique itself is several times slower here on large int64 arrays).
+
+    When the values are non-negative and leave room below 2**63 for the positions' bits, each
+    value is sorted with its position in its low bits (``np.sort`` is 2-3 times quicker than
+    ``np.argsort`` on int64); else through ``np.argsort``."""
     if not inverse:
         ordered = np.sort(values)
     else:
-        order = np.argsort(values)
-        ordered = values[order]
+        shift = max(1, (values.size - 1).bit_length())
+        if values.size and values.min() >= 0 and int(values.max()) < 1 << (63 - shift):
+            packed = np.sort((values << shift) | np.arange(values.size, dtype=np.int64))
+            ordered, order = packed >> shift, packed & ((1 << shift) - 1)
+        else:
+            order = np.argsort(values)
+            ordered = values[order]
     first = np.ones(ordered.size, dtype=bool)
     np.not_equal(ordered[1:], ordered[:-1], out=first[1:])
     if not inverse:

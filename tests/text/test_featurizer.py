@@ -136,7 +136,8 @@ def test_corpus_stats():
 #
 # Every check below compares n_jobs=2 over contiguous chunks with one pass of
 # scikit-learn's CountVectorizer / HashingVectorizer (the reference) and with
-# lintext's own single pass; "identical" means the same CSR arrays bit for bit.
+# lintext's own count in this process (one chunk); "identical" means the same CSR
+# arrays bit for bit.
 
 import lintext.text.featurizer as features_module  # noqa: E402
 from sklearn.feature_extraction.text import HashingVectorizer  # noqa: E402
@@ -226,12 +227,15 @@ def test_parallel_fit_transform_matches_one_pass(config):
     assert np.array_equal(chunked.document_frequency, np.bincount(ref.indices, minlength=ref.shape[1]))
     if config.weighting == "count" and not config.normalize:
         assert csr_arrays_equal(X2, ref)
+    assert csr_arrays_equal(X2, chunked.from_counts(ref))  # weighted as the reference counts are
     # transform over chunks: same as one pass, and as scikit-learn's transform with the fitted vocabulary
     T1, T2 = single.transform(NEW_TEXTS), chunked.transform(NEW_TEXTS)
     assert csr_arrays_equal(T1, T2)
+    refs = canonical(sp.hstack([word.transform(NEW_TEXTS)] + ([char.transform(NEW_TEXTS)] if config.char_ngrams else []),
+                               format="csr"))
+    assert csr_arrays_equal(T2, chunked.from_counts(refs))
     if config.weighting == "count" and not config.normalize:
-        refs = [word.transform(NEW_TEXTS)] + ([char.transform(NEW_TEXTS)] if config.char_ngrams else [])
-        assert csr_arrays_equal(T2, canonical(sp.hstack(refs, format="csr")))
+        assert csr_arrays_equal(T2, refs)
 
 
 @pytest.mark.slow
@@ -299,6 +303,14 @@ def test_parallel_falls_back_to_strings_when_keys_overflow(monkeypatch):
     assert csr_arrays_equal(f.fit_transform(TEXTS), expected_X)
     assert f._word_index is None
     assert csr_arrays_equal(f.transform(NEW_TEXTS), expected_T)
+    g = Featurizer(config)  # in this process: counted as strings, then scikit-learn's transform
+    assert csr_arrays_equal(g.fit_transform(TEXTS), expected_X)
+    assert csr_arrays_equal(g.transform(NEW_TEXTS), expected_T)
+    assert g._word_index is False
+    # Reference: scikit-learn's CountVectorizer over the same texts
+    ref = CountVectorizer(ngram_range=(1, 3), min_df=2)
+    assert csr_arrays_equal(expected_X, canonical(ref.fit_transform(TEXTS)))
+    assert csr_arrays_equal(expected_T, canonical(ref.transform(NEW_TEXTS)))
 
 
 def test_small_inputs_stay_in_process(monkeypatch):
@@ -335,3 +347,18 @@ def test_pair_counts_are_scipys_summed_duplicates():
     X = chunked_counts.pair_counts(rows, cols, (6, 9))
     ref = sp.coo_matrix((np.ones(200), (rows, cols)), shape=(6, 9)).tocsr()
     assert X.has_sorted_indices and X.nnz == ref.nnz and np.array_equal(X.toarray(), ref.toarray())
+
+
+@pytest.mark.parametrize("values", [
+    np.array([5, 3, 5, 0, 9, 3, 3], dtype=np.int64),  # small: sorted with positions packed in the low bits
+    np.random.default_rng(4).integers(0, 2**40, size=5000, dtype=np.int64).repeat(3),
+    np.array([2**62, 7, 2**62, 1], dtype=np.int64),  # no room for the positions: argsort
+    np.array([-4, 2, -4, 0], dtype=np.int64),  # negative: argsort
+    np.zeros(0, dtype=np.int64),
+])
+def test_unique_inverse_equals_numpy(values):
+    # Reference: np.unique(values, return_inverse=True)
+    distinct, where = chunked_counts._unique_inverse(values)
+    ref_distinct, ref_where = np.unique(values, return_inverse=True)
+    assert np.array_equal(distinct, ref_distinct) and np.array_equal(where, ref_where.ravel())
+    assert np.array_equal(chunked_counts._unique_inverse(values, inverse=False)[0], ref_distinct)
