@@ -105,13 +105,15 @@ class KernelState:
     l1_total: float = 0.0
     average_steps: bool = False
 
-    def weight_sum(self, params) -> np.ndarray:
+    def weight_sum(self, params, out: np.ndarray | None = None) -> np.ndarray:
         """The sum of the weights over the steps averaged so far (float64): ``avg_sum``, or, when
         it is kept by steps (from step 0), ``step * w - avg_sum`` (summation by parts:
-        ``sum_(t<T) w_t = T * w_T - sum_t t * (w_t - w_(t-1))`` with ``w_(-1) = 0``)."""
+        ``sum_(t<T) w_t = T * w_T - sum_t t * (w_t - w_(t-1))`` with ``w_(-1) = 0``), computed
+        into ``out`` (float64, the shape of ``params``) when given: no model-sized temporaries."""
         if not self.average_steps:
             return self.avg_sum
-        return np.multiply(params, float(self.step), dtype=np.float64) - self.avg_sum
+        total = np.multiply(params, float(self.step), dtype=np.float64, out=out)
+        return np.subtract(total, self.avg_sum, out=total)
 
     @classmethod
     def new(cls, n_features: int, n_labels: int, optimizer_code: int, dtype=np.float64, *,

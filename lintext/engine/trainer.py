@@ -238,7 +238,10 @@ def _fit_stochastic(X, y, n_labels, X_dev, y_dev, options, progress, weights=Non
     def current_weights():
         """The weights dev scores and the result use: the averaged ones once averaging has begun."""
         if averaged is not None and state.step > avg_from:
-            np.divide(state.weight_sum(params), state.step - avg_from, out=averaged, casting="unsafe")
+            # float64 weights: the sum is formed in ``averaged`` itself (the same operations in the
+            # same order, without two model-sized temporaries per epoch)
+            scratch = averaged if averaged.dtype == np.float64 else None
+            np.divide(state.weight_sum(params, out=scratch), state.step - avg_from, out=averaged, casting="unsafe")
             return averaged
         return params
 
