@@ -59,7 +59,8 @@ def default_reference():
     """scikit-learn's TfidfVectorizer with the options of lintext's default configuration."""
     c = DEFAULT
     return TfidfVectorizer(ngram_range=c.ngrams, min_df=c.min_df, max_df=c.max_df, max_features=c.max_features,
-                           lowercase=c.lowercase, norm="l2" if c.normalize else None)
+                           lowercase=c.lowercase, norm="l2" if c.normalize else None,
+                           sublinear_tf=c.weighting == "log-tfidf")  # log-tfidf: 1 + ln tf
 
 
 def timed_round_robin(cases, repeats, log):

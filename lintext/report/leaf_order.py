@@ -77,7 +77,6 @@ def optimal_leaf_order(merges: list[tuple[int, int]], dist: np.ndarray) -> np.nd
 
 def _walk(node, first, last, leaves, children, cost, meet, dist) -> list[int]:
     """The leaves of ``node`` in its cheapest order from leaf ``first`` to leaf ``last``."""
-
     if children[node] is None:
         return [first]
     a, b = children[node]
