@@ -66,6 +66,28 @@ def split_contiguous(texts: list, parts: int) -> list[list]:
     return [texts[a:b] for a, b in zip(bounds[:-1], bounds[1:])]
 
 
+CHUNK_CHARS = 16_000_000  # text counted at once: counting holds about 100 bytes per token (~300 MB here)
+
+
+def split_bounded(texts: list, parts: int, max_chars: int | None = None) -> list[list]:
+    """Contiguous chunks: ``parts`` of them (:func:`split_contiguous`), or more when ``parts``
+    chunks would hold more than ``max_chars`` (default :data:`CHUNK_CHARS`) characters each:
+    then ``ceil(total / max_chars)`` equal shares of the characters, rounded up to a multiple
+    of ``parts``, each chunk ending with the text that reaches its share (so holding at most a
+    share plus that text). The counts of the chunks merge to the same result however the texts
+    are cut; the cut bounds the memory counting takes."""
+    max_chars = CHUNK_CHARS if max_chars is None else max_chars
+    ends = np.cumsum(np.fromiter(map(len, texts), dtype=np.int64, count=len(texts)))
+    total = int(ends[-1]) if len(texts) else 0
+    n = -(-total // max_chars)
+    n = min(len(texts), -(-n // parts) * parts)  # a multiple of the workers: none waits for a last chunk
+    if n <= parts:
+        return split_contiguous(texts, parts)
+    cuts = np.searchsorted(ends, np.arange(1, n) * (total / n)) + 1  # a text ending past a share closes its chunk
+    bounds = np.unique(np.concatenate(([0], cuts, [len(texts)]))).tolist()
+    return [texts[a:b] for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+
+
 def _word_tokenizer(lowercase: bool):
     """scikit-learn's word analysis before n-grams: decode, preprocess, tokenize."""
     from sklearn.feature_extraction.text import CountVectorizer

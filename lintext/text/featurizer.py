@@ -38,7 +38,7 @@ import numpy as np
 
 from .chunked_counts import (
     count_string_chunk, count_word_chunk, df_arg, kept_columns, key_names, merge_string_chunks, merge_word_chunks,
-    run_parallel, select_columns, split_contiguous, transform_string_chunk, transform_word_chunk,
+    run_parallel, select_columns, split_bounded, split_contiguous, transform_string_chunk, transform_word_chunk,
     word_index_from_names,
 )
 from ..errors import ConfigError, ModelFileError
@@ -166,7 +166,7 @@ class Featurizer:
         import scipy.sparse as sp
 
         cfg = self.config
-        chunks = split_contiguous(texts, jobs)
+        chunks = split_bounded(texts, jobs)
         tasks = [_task(count_word_chunk, c, cfg.lowercase, cfg.ngrams) for c in chunks]
         if cfg.char_ngrams is not None:
             tasks += [_task(count_string_chunk, c, "char_wb", cfg.char_ngrams, cfg.lowercase) for c in chunks]
@@ -203,7 +203,7 @@ class Featurizer:
         import scipy.sparse as sp
 
         cfg = self.config
-        chunks = split_contiguous(texts, jobs)
+        chunks = split_bounded(texts, jobs)
         word_names = self.feature_names[: self._n_word]
         if self._word_index is None:
             self._word_index = word_index_from_names(word_names, cfg.ngrams)
@@ -212,11 +212,11 @@ class Featurizer:
             tasks = [_task(transform_word_chunk, c, cfg.lowercase, cfg.ngrams, tokens, base, keys, columns, self._n_word)
                      for c in chunks]
         elif jobs == 1:
-            tasks = [_task(self._word_vectorizer().transform, texts)]
+            tasks = [_task(self._word_vectorizer().transform, c) for c in chunks]
         else:
             tasks = [_task(transform_string_chunk, c, "word", cfg.ngrams, cfg.lowercase, word_names) for c in chunks]
         if cfg.char_ngrams is not None and jobs == 1:
-            tasks.append(_task(self._char_vectorizer().transform, texts))
+            tasks += [_task(self._char_vectorizer().transform, c) for c in chunks]
         elif cfg.char_ngrams is not None:
             char_names = [n[1:-1] for n in self.feature_names[self._n_word :]]
             tasks += [_task(transform_string_chunk, c, "char_wb", cfg.char_ngrams, cfg.lowercase, char_names) for c in chunks]

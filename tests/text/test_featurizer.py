@@ -253,7 +253,7 @@ def test_parallel_max_features_breaks_ties_as_scikit_learn(monkeypatch):
     assert f.feature_names == ref.get_feature_names_out().tolist()
     # five chunks on two workers: the merge of more than two sorted runs gives the same
     split = features_module.split_contiguous
-    monkeypatch.setattr(features_module, "split_contiguous", lambda texts, parts: split(texts, 5))
+    monkeypatch.setattr(features_module, "split_bounded", lambda texts, parts: split(texts, 5))
     g = parallel(config)
     assert csr_arrays_equal(g.fit_transform(texts), R)
     assert g.feature_names == f.feature_names
@@ -362,3 +362,35 @@ def test_unique_inverse_equals_numpy(values):
     ref_distinct, ref_where = np.unique(values, return_inverse=True)
     assert np.array_equal(distinct, ref_distinct) and np.array_equal(where, ref_where.ravel())
     assert np.array_equal(chunked_counts._unique_inverse(values, inverse=False)[0], ref_distinct)
+
+
+def test_split_bounded_cuts_by_characters():
+    texts = ["a" * 5, "b" * 30, "c" * 5, "d" * 5, "e" * 5, "f" * 50, "g" * 1]
+    assert chunked_counts.split_bounded(texts, 2, max_chars=1000) == chunked_counts.split_contiguous(texts, 2)
+    chunks = chunked_counts.split_bounded(texts, 1, max_chars=20)
+    assert [t for c in chunks for t in c] == texts and all(chunks)  # contiguous, every text once, none empty
+    # by hand: 101 characters, ceil(101 / 20) = 6 shares of 16.8; running counts 5, 35, 40, 45, 50,
+    # 100, 101: the shares at 16.8 and 33.7 end with the text ending at 35, those at 50.5, 67.3 and
+    # 84.2 with the one ending at 100 (the 50-character text takes its three shares along)
+    assert [len(c) for c in chunks] == [2, 4, 1]
+    assert all(sum(map(len, c)) <= 101 / 6 + len(c[-1]) for c in chunks)  # a share plus the last text
+    assert chunked_counts.split_bounded([], 1) == [[]]
+
+
+@pytest.mark.parametrize("config", [FeaturizerConfig(), FeaturizerConfig(ngrams=(1, 3), char_ngrams=(2, 3), min_df=2)],
+                         ids=["default", "char-ngrams"])
+def test_small_chunks_in_process_change_nothing(monkeypatch, config):
+    # Reference: the featurizer counting all texts as one chunk, itself checked against CountVectorizer above
+    whole = Featurizer(config)
+    X, T = whole.fit_transform(TEXTS), whole.transform(NEW_TEXTS)
+    monkeypatch.setattr(chunked_counts, "CHUNK_CHARS", 300)  # about 15 texts a chunk
+    assert len(chunked_counts.split_bounded(TEXTS, 1)) > 20
+    cut = Featurizer(config)
+    assert csr_arrays_equal(cut.fit_transform(TEXTS), X) and cut.feature_names == whole.feature_names
+    assert np.array_equal(cut.document_frequency, whole.document_frequency)
+    assert csr_arrays_equal(cut.transform(NEW_TEXTS), T)
+    # Reference: scikit-learn's CountVectorizer, for the word block of the default configuration
+    if config.char_ngrams is None:
+        ref = reference_vectorizer(FeaturizerConfig(weighting="count", normalize=False, min_df=config.min_df))
+        R = canonical(ref.fit_transform(TEXTS))
+        assert csr_arrays_equal(cut.from_counts(R), X)
