@@ -360,11 +360,17 @@ def word_index_from_names(names, ngram_range):
     return tokens, base, keys[order], columns[order]
 
 
-def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, columns, n_cols):
-    """Worker: word counts of one chunk over a fitted vocabulary given as sorted n-gram keys."""
+def token_rank(tokens) -> dict:
+    """Each token's rank in the sorted ``tokens``; an unknown token gives -1."""
+    return _TokenRank(zip(tokens, range(len(tokens))))
+
+
+def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, columns, n_cols, rank=None):
+    """Worker: word counts of one chunk over a fitted vocabulary given as sorted n-gram keys
+    (``rank``: :func:`token_rank` of ``tokens``, when the caller keeps one)."""
     import scipy.sparse as sp
 
-    rank = _TokenRank(zip(tokens, range(len(tokens))))
+    rank = token_rank(tokens) if rank is None else rank
     ids, lengths = analyzed_ids(texts, _word_tokenizer(lowercase), rank.__getitem__)
     found, rows = ngram_keys(ids, lengths, ngram_range, base)
     if not keys.size:

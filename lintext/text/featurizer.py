@@ -38,8 +38,8 @@ import numpy as np
 
 from .chunked_counts import (
     count_string_chunk, count_word_chunk, df_arg, kept_columns, key_names, merge_string_chunks, merge_word_chunks,
-    run_parallel, select_columns, split_bounded, split_contiguous, transform_string_chunk, transform_word_chunk,
-    word_index_from_names,
+    run_parallel, select_columns, split_bounded, split_contiguous, token_rank, transform_string_chunk,
+    transform_word_chunk, word_index_from_names,
 )
 from ..errors import ConfigError, ModelFileError
 from .vocabulary import VOCAB_HEADER, escape, read_vocabulary  # noqa: F401  (VOCAB_HEADER: re-exported)
@@ -81,6 +81,7 @@ class Featurizer:
         self._word = self._char = None  # CountVectorizers for single-pass transform, built on demand
         self._n_word = 0  # word columns come first, character columns after them
         self._word_index = None  # (tokens, base, sorted keys, columns) for chunked transform; see ngram_keys
+        self._rank = None  # token -> rank of _word_index's tokens, for transforms in this process
 
     # ------------------------------------------------------------ fitting
 
@@ -204,16 +205,19 @@ class Featurizer:
 
         cfg = self.config
         chunks = split_bounded(texts, jobs)
-        word_names = self.feature_names[: self._n_word]
         if self._word_index is None:
-            self._word_index = word_index_from_names(word_names, cfg.ngrams)
+            self._word_index = word_index_from_names(self.feature_names[: self._n_word], cfg.ngrams)
         if self._word_index is not False:
             tokens, base, keys, columns = self._word_index
-            tasks = [_task(transform_word_chunk, c, cfg.lowercase, cfg.ngrams, tokens, base, keys, columns, self._n_word)
-                     for c in chunks]
+            if jobs == 1 and self._rank is None:  # kept: a few texts at a time cost little
+                self._rank = token_rank(tokens)
+            rank = self._rank if jobs == 1 else None  # a worker builds its own (a dict pickles slowly)
+            tasks = [_task(transform_word_chunk, c, cfg.lowercase, cfg.ngrams, tokens, base, keys, columns, self._n_word,
+                           rank) for c in chunks]
         elif jobs == 1:
             tasks = [_task(self._word_vectorizer().transform, c) for c in chunks]
         else:
+            word_names = self.feature_names[: self._n_word]
             tasks = [_task(transform_string_chunk, c, "word", cfg.ngrams, cfg.lowercase, word_names) for c in chunks]
         if cfg.char_ngrams is not None and jobs == 1:
             tasks += [_task(self._char_vectorizer().transform, c) for c in chunks]
