@@ -375,11 +375,15 @@ def transform_word_chunk(texts, lowercase, ngram_range, tokens, base, keys, colu
     found, rows = ngram_keys(ids, lengths, ngram_range, base)
     if not keys.size:
         return sp.csr_matrix((lengths.size, n_cols))
-    at = np.searchsorted(keys, found)
+    # each distinct n-gram looked up once, in ascending order (the search then walks the keys
+    # forward: 0.6 s where looking up 4.6 million occurrences one by one took 1.05 s at 1.3
+    # million features)
+    distinct, where = _unique_inverse(found)
+    at = np.searchsorted(keys, distinct)
     at[at == keys.size] = 0
-    hit = keys[at] == found
-    cols = at[hit] if columns is None else columns[at[hit]]
-    return pair_counts(rows[hit], cols, (lengths.size, n_cols))
+    hit = (keys[at] == distinct)[where]
+    column_of = at if columns is None else columns[at]
+    return pair_counts(rows[hit], column_of[where[hit]], (lengths.size, n_cols))
 
 
 def transform_string_chunk(texts, analyzer, ngram_range, lowercase, names):
