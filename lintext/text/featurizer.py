@@ -246,12 +246,9 @@ class Featurizer:
 
     def _hashed_counts(self, texts, jobs: int = 1) -> sp.csr_matrix:
         import scipy.sparse as sp
-        from joblib import delayed
 
-        if jobs > 1:
-            parts = run_parallel([delayed(hashed_counts)(c, self.config) for c in split_contiguous(texts, jobs)], jobs)
-            return sp.vstack(parts, format="csr")
-        return hashed_counts(texts, self.config)
+        parts = _run([_task(hashed_counts, c, self.config) for c in split_contiguous(texts, jobs)], jobs)
+        return sp.vstack(parts, format="csr") if len(parts) > 1 else parts[0]
 
     def _weight(self, counts: sp.csr_matrix) -> sp.csr_matrix:
         import scipy.sparse as sp
